@@ -1,0 +1,114 @@
+//! The one Diagnostic type of the project.
+//!
+//! Diagnostics are plain data: a stable code, a severity, a message, a primary span with its
+//! label, secondary labels, notes and a help line. The CLI renders them with ariadne and the
+//! language server converts them to protocol diagnostics; neither re-words them.
+
+use crate::Span;
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum Severity {
+    Error,
+    Warning,
+}
+
+/// A stable diagnostic code with a short title, documented in docs/diagnostics.md.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub struct Code {
+    /// Stable identifier such as `E0101`; never reused for another meaning.
+    pub id: &'static str,
+    /// Short kebab-case name such as `unexpected-token`.
+    pub name: &'static str,
+    pub severity: Severity,
+}
+
+#[derive(Clone, Debug, PartialEq)]
+pub struct Label {
+    pub span: Span,
+    pub message: String,
+}
+
+#[derive(Clone, Debug, PartialEq)]
+pub struct Diagnostic {
+    pub code: Code,
+    pub severity: Severity,
+    /// Lowercase, no trailing period, names the problem: "unknown state `vx`".
+    pub message: String,
+    pub primary: Label,
+    pub labels: Vec<Label>,
+    pub notes: Vec<String>,
+    pub help: Option<String>,
+}
+
+impl Diagnostic {
+    /// A diagnostic of `code`'s default severity whose primary label says `label` at `span`.
+    pub fn new(code: Code, message: impl Into<String>, span: Span, label: impl Into<String>) -> Self {
+        Diagnostic {
+            code,
+            severity: code.severity,
+            message: message.into(),
+            primary: Label { span, message: label.into() },
+            labels: Vec::new(),
+            notes: Vec::new(),
+            help: None,
+        }
+    }
+
+    pub fn with_label(mut self, span: Span, message: impl Into<String>) -> Self {
+        self.labels.push(Label { span, message: message.into() });
+        self
+    }
+
+    pub fn with_note(mut self, note: impl Into<String>) -> Self {
+        self.notes.push(note.into());
+        self
+    }
+
+    pub fn with_help(mut self, help: impl Into<String>) -> Self {
+        self.help = Some(help.into());
+        self
+    }
+
+    pub fn is_error(&self) -> bool {
+        self.severity == Severity::Error
+    }
+}
+
+/// Suggest the candidate closest to `name` (Levenshtein distance at most a third of its length,
+/// at least 1), for "did you mean" help lines.
+pub fn closest_name<'a>(name: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<&'a str> {
+    let limit = (name.chars().count() / 3).max(1);
+    candidates
+        .into_iter()
+        .filter(|c| *c != name)
+        .map(|c| (edit_distance(name, c), c))
+        .filter(|(d, _)| *d <= limit)
+        .min_by_key(|(d, c)| (*d, *c))
+        .map(|(_, c)| c)
+}
+
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1; b.len() + 1];
+        for (j, &cb) in b.iter().enumerate() {
+            let subst = prev[j] + usize::from(ca != cb);
+            cur[j + 1] = subst.min(prev[j + 1] + 1).min(cur[j] + 1);
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn closest_name_suggests_near_misses_only() {
+        assert_eq!(closest_name("omgea", ["omega", "theta", "x"]), Some("omega"));
+        assert_eq!(closest_name("vx", ["v", "x", "omega"]), Some("v"));
+        assert_eq!(closest_name("speed", ["omega", "theta"]), None);
+    }
+}

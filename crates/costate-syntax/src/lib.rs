@@ -1,0 +1,17 @@
+//! costate-syntax: the text layer of the costate problem language.
+//!
+//! Owns spans, the line index, the lexer, the parser (chumsky), the syntax tree, the formatter
+//! and the project's one `Diagnostic` type.
+//!
+//! Architecture invariant: this crate never fails and never checks meaning. `parse` turns any
+//! text into a tree plus syntax diagnostics; names, units and well-posedness belong to
+//! `costate-check`. It does no IO and depends on no other costate crate.
+
+pub mod ast;
+pub mod diagnostic;
+pub mod line_index;
+mod span;
+
+pub use diagnostic::{closest_name, Code, Diagnostic, Label, Severity};
+pub use line_index::{LineCol, LineIndex};
+pub use span::Span;
