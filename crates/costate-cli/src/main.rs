@@ -1,1 +1,82 @@
-fn main() {}
+//! The `costate` command-line tool: a thin shell over the analysis core and the solver.
+//!
+//! Owns argument parsing, file IO (atomic writes), terminal and JSON rendering and exit codes.
+//! It holds no language or numeric logic of its own.
+
+mod check_cmd;
+mod files;
+mod fmt_cmd;
+mod render;
+
+use std::io::IsTerminal;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand, ValueEnum};
+
+/// Exit codes shared by every command.
+pub mod exit {
+    /// Success (warnings allowed).
+    pub const OK: u8 = 0;
+    /// The input has errors, a check failed, or an expectation did not hold.
+    pub const FAILED: u8 = 1;
+    /// Usage or IO error.
+    pub const USAGE: u8 = 2;
+}
+
+#[derive(Parser)]
+#[command(name = "costate", version, about = "State, check and solve optimal-control problems")]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Parse and check problem files and report diagnostics.
+    Check {
+        /// Problem files (`*.costate`).
+        #[arg(required = true)]
+        files: Vec<PathBuf>,
+        /// Output format.
+        #[arg(long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+    },
+    /// Rewrite problem files in the canonical layout.
+    Fmt {
+        /// Problem files (`*.costate`).
+        #[arg(required = true)]
+        files: Vec<PathBuf>,
+        /// Report files that are not formatted, without changing them (exit 1 if any).
+        #[arg(long)]
+        check: bool,
+    },
+}
+
+#[derive(Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum Format {
+    Text,
+    Json,
+}
+
+/// Colour only for a terminal, and never when `NO_COLOR` is set (https://no-color.org).
+pub fn use_color(stream_is_terminal: bool) -> bool {
+    stream_is_terminal && std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty())
+}
+
+fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => {
+            let code = if e.use_stderr() { exit::USAGE } else { exit::OK };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    let color = use_color(std::io::stdout().is_terminal());
+    let code = match cli.command {
+        Command::Check { files, format } => check_cmd::run(&files, format, color),
+        Command::Fmt { files, check } => fmt_cmd::run(&files, check),
+    };
+    ExitCode::from(code)
+}

@@ -1,0 +1,75 @@
+//! `costate check`: diagnostics for each file, rendered for people or machines.
+
+use std::path::PathBuf;
+
+use costate_syntax::{Diagnostic, LineIndex};
+use serde_json::json;
+
+use crate::{exit, files, render, Format};
+
+/// Every diagnostic of one source text, syntax first, in source order.
+pub fn diagnostics(source: &str) -> Vec<Diagnostic> {
+    let parse = costate_syntax::parse(source);
+    let analysis = costate_check::check(&parse.file);
+    let mut all = parse.diagnostics;
+    all.extend(analysis.diagnostics);
+    all.sort_by_key(|d| (d.primary.span.start, d.primary.span.end));
+    all
+}
+
+pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
+    let (mut errors, mut warnings, mut io_failed) = (0usize, 0usize, false);
+    let mut json_files = Vec::new();
+    for path in paths {
+        let shown = path.display().to_string();
+        let source = match files::read_source(path) {
+            Ok(s) => s,
+            Err(e) => {
+                eprintln!("error: {e}");
+                io_failed = true;
+                continue;
+            }
+        };
+        let found = diagnostics(&source);
+        errors += found.iter().filter(|d| d.is_error()).count();
+        warnings += found.iter().filter(|d| !d.is_error()).count();
+        match format {
+            Format::Text => {
+                for d in &found {
+                    print!("{}", render::terminal(&shown, &source, d, color));
+                }
+            }
+            Format::Json => {
+                let index = LineIndex::new(&source);
+                json_files.push(json!({
+                    "path": shown,
+                    "diagnostics": found.iter().map(|d| render::json(&source, &index, d)).collect::<Vec<_>>(),
+                }));
+            }
+        }
+    }
+    match format {
+        Format::Text => {
+            let checked = paths.len();
+            let plural = |n: usize, word: &str| format!("{n} {word}{}", if n == 1 { "" } else { "s" });
+            println!(
+                "{}, {} in {}",
+                plural(errors, "error"),
+                plural(warnings, "warning"),
+                plural(checked, "file")
+            );
+        }
+        Format::Json => println!(
+            "{}",
+            serde_json::to_string_pretty(&json!({ "files": json_files, "errors": errors, "warnings": warnings }))
+                .expect("JSON values serialise")
+        ),
+    }
+    if io_failed {
+        exit::USAGE
+    } else if errors > 0 {
+        exit::FAILED
+    } else {
+        exit::OK
+    }
+}

@@ -1,0 +1,62 @@
+//! Turning diagnostics into terminal reports (ariadne) and JSON.
+//!
+//! The wording comes from the diagnostics themselves; this module only lays them out.
+
+use ariadne::{Config, IndexType, Label, Report, ReportKind, Source};
+use costate_syntax::{Diagnostic, LineIndex, Severity};
+use serde_json::{json, Value};
+
+/// Render one diagnostic as ariadne does, into a string.
+pub fn terminal(path: &str, source: &str, diagnostic: &Diagnostic, color: bool) -> String {
+    let kind = match diagnostic.severity {
+        Severity::Error => ReportKind::Error,
+        Severity::Warning => ReportKind::Warning,
+    };
+    let clamp = |s: costate_syntax::Span| s.start.min(source.len())..s.end.min(source.len());
+    let primary = clamp(diagnostic.primary.span);
+    let mut report = Report::build(kind, (path, primary.clone()))
+        .with_config(Config::default().with_color(color).with_index_type(IndexType::Byte))
+        .with_code(diagnostic.code.id)
+        .with_message(&diagnostic.message)
+        .with_label(Label::new((path, primary)).with_message(&diagnostic.primary.message));
+    for label in &diagnostic.labels {
+        report = report.with_label(Label::new((path, clamp(label.span))).with_message(&label.message));
+    }
+    for note in &diagnostic.notes {
+        report = report.with_note(note);
+    }
+    if let Some(help) = &diagnostic.help {
+        report = report.with_help(help);
+    }
+    let mut out = Vec::new();
+    report
+        .finish()
+        .write((path, Source::from(source)), &mut out)
+        .expect("writing to a Vec cannot fail");
+    String::from_utf8_lossy(&out).into_owned()
+}
+
+/// One diagnostic as JSON: byte span plus 1-based line and column (columns count characters).
+pub fn json(source: &str, index: &LineIndex, diagnostic: &Diagnostic) -> Value {
+    let position = |offset: usize| {
+        let offset = offset.min(source.len());
+        let line = index.line_of(offset);
+        let start = index.line_start(line);
+        let column = source.get(start..offset).map(|s| s.chars().count()).unwrap_or(0);
+        json!({ "line": line + 1, "column": column + 1 })
+    };
+    let span = |s: costate_syntax::Span| {
+        json!({ "start": s.start, "end": s.end, "from": position(s.start), "to": position(s.end) })
+    };
+    json!({
+        "code": diagnostic.code.id,
+        "name": diagnostic.code.name,
+        "severity": match diagnostic.severity { Severity::Error => "error", Severity::Warning => "warning" },
+        "message": diagnostic.message,
+        "span": span(diagnostic.primary.span),
+        "label": diagnostic.primary.message,
+        "labels": diagnostic.labels.iter().map(|l| json!({ "span": span(l.span), "message": l.message })).collect::<Vec<_>>(),
+        "notes": diagnostic.notes,
+        "help": diagnostic.help,
+    })
+}
