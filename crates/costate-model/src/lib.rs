@@ -11,6 +11,6 @@ pub mod function;
 pub mod graph;
 pub mod ocp;
 
-pub use function::{Function, Workspace};
-pub use graph::{BinaryOp, Graph, NodeId, UnaryOp};
+pub use function::{CompileError, Function, NonFinite, TapeStats, Workspace};
+pub use graph::{select_value, BinaryOp, Graph, Node, NodeId, UnaryOp};
 pub use ocp::*;
