@@ -147,11 +147,7 @@ impl Ocp {
     }
 
     pub fn endpoint_layout(&self) -> EndpointLayout {
-        EndpointLayout {
-            nx: self.states.len(),
-            np: self.params.len(),
-            nq: self.n_integrals,
-        }
+        EndpointLayout { nx: self.states.len(), np: self.params.len(), nq: self.n_integrals }
     }
 }
 
