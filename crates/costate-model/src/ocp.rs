@@ -208,3 +208,14 @@ impl EndpointLayout {
         false
     }
 }
+
+/// Which of the problem's functions a finding (a NaN, a violated row) comes from; with a row
+/// index it is enough for the lowering's source map to point at the source line.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum FunctionKind {
+    Dynamics,
+    Integrands,
+    Path,
+    Objective,
+    Boundary,
+}
