@@ -12,9 +12,12 @@
 //!   lets [`Function::first_non_finite`] trace a NaN back to the node that produced it.
 //! - Constants sit in their slots from [`Function::workspace`] on; inputs are copied in at the
 //!   start of each tape; instructions run in increasing node id, which is topological.
-//! - Weights of the Hessian are not graph nodes: the Hessian tape computes every
-//!   `d2 f_i / dx_j dx_k` (lower triangle, structurally nonzero only) and the weighted sums are
-//!   accumulated afterwards, so the same graph never needs inputs beyond `n_inputs`.
+//! - The Hessian of `sum_i w_i f_i` is built forward over reverse: one symbolic reverse sweep
+//!   seeded with the weights gives the gradient `G_j`, and each `G_j` is differentiated only
+//!   with respect to the inputs `k <= j` it depends on. That costs about `n_inputs` times the
+//!   expression size, where differentiating each Jacobian entry again would cost its square.
+//!   The weights enter the graph as inputs `n_inputs + i`; only the Hessian tape reads them
+//!   (from the `weights` argument), so they never clash with another function's inputs.
 
 use std::sync::atomic::{AtomicU64, Ordering};
 
@@ -125,16 +128,19 @@ impl Instr {
 
 #[derive(Clone, Debug, Default)]
 struct Tape {
-    /// `(input index, slot)` copies done before the instructions.
+    /// `(source, slot)` copies done before the instructions; `source` indexes the inputs
+    /// followed by the weights.
     inputs: Vec<(u32, u32)>,
     instrs: Vec<Instr>,
 }
 
 impl Tape {
     #[inline]
-    fn run(&self, inputs: &[f64], slots: &mut [f64]) {
+    fn run(&self, inputs: &[f64], weights: &[f64], slots: &mut [f64]) {
         for &(j, s) in &self.inputs {
-            slots[s as usize] = inputs[j as usize];
+            let j = j as usize;
+            slots[s as usize] =
+                if j < inputs.len() { inputs[j] } else { weights[j - inputs.len()] };
         }
         for ins in &self.instrs {
             let (dst, v) = match *ins {
@@ -181,16 +187,15 @@ pub struct Function {
     jacobian_slots: Vec<u32>,
     hessian: Tape,
     hessian_pattern: Vec<(usize, usize)>,
-    /// Entry `e` of the Hessian is `sum w[output] * slots[slot]` over
-    /// `hessian_terms[hessian_offsets[e]..hessian_offsets[e + 1]]`.
-    hessian_offsets: Vec<u32>,
-    hessian_terms: Vec<(u32, u32)>,
+    hessian_slots: Vec<u32>,
 }
 
 /// Assigns slots and builds tapes; lives only during compilation.
 struct Builder<'g> {
     graph: &'g Graph,
     n_inputs: usize,
+    /// Inputs `n_inputs..n_inputs + n_weights` are the Hessian weights.
+    n_weights: usize,
     slot_of: Vec<u32>,
     /// Tape generation that last visited each node.
     visited: Vec<u32>,
@@ -202,10 +207,11 @@ struct Builder<'g> {
 const NO_SLOT: u32 = u32::MAX;
 
 impl<'g> Builder<'g> {
-    fn new(graph: &'g Graph, n_inputs: usize) -> Self {
+    fn new(graph: &'g Graph, n_inputs: usize, n_weights: usize) -> Self {
         Builder {
             graph,
             n_inputs,
+            n_weights,
             slot_of: vec![NO_SLOT; graph.len()],
             visited: vec![0; graph.len()],
             generation: 0,
@@ -224,8 +230,10 @@ impl<'g> Builder<'g> {
         *s
     }
 
-    /// The tape computing `roots` and everything they need.
-    fn tape(&mut self, roots: &[NodeId]) -> Result<Tape, CompileError> {
+    /// The tape computing `roots` and everything they need; only with `weights` may it read
+    /// the weight inputs.
+    fn tape(&mut self, roots: &[NodeId], weights: bool) -> Result<Tape, CompileError> {
+        let limit = self.n_inputs + if weights { self.n_weights } else { 0 };
         self.generation += 1;
         let generation = self.generation;
         let mut order = Vec::new();
@@ -254,7 +262,7 @@ impl<'g> Builder<'g> {
             let ins = match self.graph.node(n) {
                 Node::Constant(_) => continue,
                 Node::Input(j) => {
-                    if j as usize >= self.n_inputs {
+                    if j as usize >= limit {
                         return Err(CompileError::InputOutOfRange {
                             input: j as usize,
                             n_inputs: self.n_inputs,
@@ -342,50 +350,36 @@ impl Function {
             }
         }
 
-        // Hessian of sum_i w_i f_i, lower triangle: differentiate each Jacobian entry only with
-        // respect to the inputs it depends on, and only for columns k <= j.
-        let mut hess_entries: Vec<(usize, usize, usize, NodeId)> = Vec::new();
-        for &(i, j, d) in &jac_entries {
-            let deps = graph.dependencies(d).to_vec();
+        // Hessian of sum_i w_i f_i, lower triangle, forward over reverse (see module docs).
+        let weights: Vec<NodeId> = (0..outputs.len()).map(|i| graph.input(n_inputs + i)).collect();
+        let mut hess_entries: Vec<(usize, usize, NodeId)> = Vec::new();
+        for (j, gj) in graph.gradient(outputs, &weights) {
+            let deps = graph.dependencies(gj).to_vec();
             for k in deps.into_iter().map(|k| k as usize).take_while(|&k| k <= j) {
-                let h = graph.derivative(d, k);
+                let h = graph.derivative(gj, k);
                 if graph.as_constant(h) != Some(0.0) {
-                    hess_entries.push((j, k, i, h));
+                    hess_entries.push((j, k, h));
                 }
             }
         }
-        hess_entries.sort_unstable_by_key(|&(j, k, i, _)| (j, k, i));
 
         let graph: &Graph = graph;
-        let mut b = Builder::new(graph, n_inputs);
+        let mut b = Builder::new(graph, n_inputs, outputs.len());
 
-        let values = b.tape(outputs)?;
+        let values = b.tape(outputs, false)?;
         let value_tape_slots = b.slot_nodes.len();
         let output_slots: Vec<u32> = outputs.iter().map(|&o| b.slot(o)).collect();
 
         let mut jac_roots: Vec<NodeId> = outputs.to_vec();
         jac_roots.extend(jac_entries.iter().map(|e| e.2));
-        let jacobian = b.tape(&jac_roots)?;
+        let jacobian = b.tape(&jac_roots, false)?;
         let jacobian_slots = jac_entries.iter().map(|e| b.slot(e.2)).collect();
         let jacobian_pattern = jac_entries.iter().map(|e| (e.0, e.1)).collect();
 
-        let hess_roots: Vec<NodeId> = hess_entries.iter().map(|e| e.3).collect();
-        let hessian = b.tape(&hess_roots)?;
-        let mut hessian_pattern: Vec<(usize, usize)> = Vec::new();
-        let mut hessian_offsets = vec![0u32];
-        let mut hessian_terms = Vec::with_capacity(hess_entries.len());
-        for &(j, k, i, h) in &hess_entries {
-            if hessian_pattern.last() != Some(&(j, k)) {
-                if !hessian_pattern.is_empty() {
-                    hessian_offsets.push(hessian_terms.len() as u32);
-                }
-                hessian_pattern.push((j, k));
-            }
-            hessian_terms.push((i as u32, b.slot(h)));
-        }
-        if !hessian_pattern.is_empty() {
-            hessian_offsets.push(hessian_terms.len() as u32);
-        }
+        let hess_roots: Vec<NodeId> = hess_entries.iter().map(|e| e.2).collect();
+        let hessian = b.tape(&hess_roots, true)?;
+        let hessian_slots = hess_roots.iter().map(|&h| b.slot(h)).collect();
+        let hessian_pattern = hess_entries.iter().map(|e| (e.0, e.1)).collect();
 
         let mut value_producer = vec![u32::MAX; value_tape_slots];
         for (k, ins) in values.instrs.iter().enumerate() {
@@ -406,8 +400,7 @@ impl Function {
             jacobian_slots,
             hessian,
             hessian_pattern,
-            hessian_offsets,
-            hessian_terms,
+            hessian_slots,
         })
     }
 
@@ -446,7 +439,7 @@ impl Function {
         self.check_inputs(inputs);
         assert_eq!(outputs.len(), self.n_outputs(), "wrong number of outputs");
         let slots = self.slots(ws);
-        self.values.run(inputs, slots);
+        self.values.run(inputs, &[], slots);
         for (o, &s) in outputs.iter_mut().zip(&self.output_slots) {
             *o = slots[s as usize];
         }
@@ -462,7 +455,7 @@ impl Function {
         self.check_inputs(inputs);
         assert_eq!(values.len(), self.jacobian_pattern.len(), "wrong Jacobian length");
         let slots = self.slots(ws);
-        self.jacobian.run(inputs, slots);
+        self.jacobian.run(inputs, &[], slots);
         for (v, &s) in values.iter_mut().zip(&self.jacobian_slots) {
             *v = slots[s as usize];
         }
@@ -506,11 +499,9 @@ impl Function {
         assert_eq!(weights.len(), self.n_outputs(), "wrong number of weights");
         assert_eq!(values.len(), self.hessian_pattern.len(), "wrong Hessian length");
         let slots = self.slots(ws);
-        self.hessian.run(inputs, slots);
-        for (e, v) in values.iter_mut().enumerate() {
-            let terms = &self.hessian_terms
-                [self.hessian_offsets[e] as usize..self.hessian_offsets[e + 1] as usize];
-            *v = terms.iter().map(|&(i, s)| weights[i as usize] * slots[s as usize]).sum();
+        self.hessian.run(inputs, weights, slots);
+        for (v, &s) in values.iter_mut().zip(&self.hessian_slots) {
+            *v = slots[s as usize];
         }
     }
 
@@ -520,7 +511,7 @@ impl Function {
     pub fn first_non_finite(&self, inputs: &[f64], ws: &mut Workspace) -> Option<NonFinite> {
         self.check_inputs(inputs);
         let slots = self.slots(ws);
-        self.values.run(inputs, slots);
+        self.values.run(inputs, &[], slots);
         let (output, &start) =
             self.output_slots.iter().enumerate().find(|(_, &s)| !slots[s as usize].is_finite())?;
         let value = slots[start as usize];

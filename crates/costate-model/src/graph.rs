@@ -3,8 +3,9 @@
 //!
 //! This module owns node construction ([`Graph::constant`], [`Graph::input`], [`Graph::unary`],
 //! [`Graph::binary`], [`Graph::select`]), the per-node dependency sets that make derivative
-//! sparsity exact, the derivative rules, a slow reference evaluator ([`Graph::evaluate`]) and a
-//! debugging printer ([`Graph::display`]). It does not compile or evaluate tapes (that is
+//! sparsity exact, the derivative rules (forward: [`Graph::derivative`]; reverse:
+//! [`Graph::gradient`]), a slow reference evaluator ([`Graph::evaluate`]) and a debugging
+//! printer ([`Graph::display`]). It does not compile or evaluate tapes (that is
 //! [`crate::function`]) and knows nothing of names, units or source spans.
 //!
 //! Invariants the rest of the crate relies on:
@@ -13,7 +14,8 @@
 //! - a node's dependency set lists exactly the inputs whose derivative of that node is not
 //!   structurally zero: a Jacobian built from it never holds a structural zero;
 //! - folding assumes finite operands, as any computer-algebra simplifier does: `x * 0` folds to
-//!   `0` and `x - x` to `0` even though at run time `x` could be infinite or NaN.
+//!   `0` and `x - x` to `0` even though at run time `x` could be infinite or NaN; combining
+//!   constant factors (`2 * (3 * x)` to `6 * x`) may change the last bit of a result.
 
 use std::collections::{HashMap, HashSet};
 use std::fmt::Write as _;
@@ -729,6 +731,203 @@ impl Graph {
         self.binary(Mul, n, s)
     }
 
+    /// Reverse-mode symbolic gradient of `sum_i seeds[i] * outputs[i]`: the nonzero entries
+    /// `(input index, node)`, sorted by input index.
+    ///
+    /// One sweep over the nodes the outputs use, in decreasing id (every user of a node has a
+    /// larger id, so its adjoint is complete when reached), so the result costs a constant
+    /// number of nodes per edge of the expression, however many inputs there are. Seeds are
+    /// ordinary nodes: [`crate::Function`] passes fresh inputs standing for the weights, so
+    /// differentiating the result once more gives the weighted Hessian (forward over reverse).
+    /// Non-smooth points follow the same conventions as [`Graph::derivative`].
+    pub fn gradient(&mut self, outputs: &[NodeId], seeds: &[NodeId]) -> Vec<(usize, NodeId)> {
+        use BinaryOp::*;
+        use UnaryOp::*;
+        let mut adjoint: HashMap<NodeId, NodeId> = HashMap::new();
+        for (&o, &s) in outputs.iter().zip(seeds) {
+            self.accumulate(&mut adjoint, o, s);
+        }
+        // Every node the outputs reach that has a derivative at all, latest first.
+        let mut order = Vec::new();
+        let mut seen = HashSet::new();
+        let mut stack: Vec<NodeId> = outputs.to_vec();
+        while let Some(n) = stack.pop() {
+            if self.deps[n.index()].is_empty() || !seen.insert(n) {
+                continue;
+            }
+            order.push(n);
+            match self.node(n) {
+                Node::Unary(_, a) => stack.push(a),
+                Node::Binary(_, a, b) => stack.extend([a, b]),
+                Node::Select { pos, neg, .. } => stack.extend([pos, neg]),
+                Node::Constant(_) | Node::Input(_) => {}
+            }
+        }
+        order.sort_unstable_by(|a, b| b.cmp(a));
+        let mut gradient = Vec::new();
+        for n in order {
+            let Some(&adj) = adjoint.get(&n) else { continue };
+            let one = self.constant(1.0);
+            let zero = self.constant(0.0);
+            match self.node(n) {
+                Node::Constant(_) => {}
+                Node::Input(j) => gradient.push((j as usize, adj)),
+                Node::Select { cond, pos, neg } => {
+                    let to_pos = self.select(cond, adj, zero);
+                    let to_neg = self.select(cond, zero, adj);
+                    self.accumulate(&mut adjoint, pos, to_pos);
+                    self.accumulate(&mut adjoint, neg, to_neg);
+                }
+                Node::Unary(op, a) => {
+                    let v = match op {
+                        Neg => self.unary(Neg, adj),
+                        Abs => {
+                            let nadj = self.unary(Neg, adj);
+                            self.select(a, adj, nadj)
+                        }
+                        Sin => {
+                            let c = self.unary(Cos, a);
+                            self.binary(Mul, adj, c)
+                        }
+                        Cos => {
+                            let s = self.unary(Sin, a);
+                            let p = self.binary(Mul, adj, s);
+                            self.unary(Neg, p)
+                        }
+                        Tan => {
+                            let t2 = self.binary(Mul, n, n);
+                            let f = self.binary(Add, one, t2);
+                            self.binary(Mul, adj, f)
+                        }
+                        Asin | Acos => {
+                            let a2 = self.binary(Mul, a, a);
+                            let r = self.binary(Sub, one, a2);
+                            let s = self.unary(Sqrt, r);
+                            let q = self.binary(Div, adj, s);
+                            if op == Asin {
+                                q
+                            } else {
+                                self.unary(Neg, q)
+                            }
+                        }
+                        Atan => {
+                            let a2 = self.binary(Mul, a, a);
+                            let d = self.binary(Add, one, a2);
+                            self.binary(Div, adj, d)
+                        }
+                        Sinh => {
+                            let c = self.unary(Cosh, a);
+                            self.binary(Mul, adj, c)
+                        }
+                        Cosh => {
+                            let s = self.unary(Sinh, a);
+                            self.binary(Mul, adj, s)
+                        }
+                        Tanh => {
+                            let t2 = self.binary(Mul, n, n);
+                            let f = self.binary(Sub, one, t2);
+                            self.binary(Mul, adj, f)
+                        }
+                        Exp => self.binary(Mul, adj, n),
+                        Log => self.binary(Div, adj, a),
+                        Sqrt => {
+                            let two = self.constant(2.0);
+                            let d = self.binary(Mul, two, n);
+                            self.binary(Div, adj, d)
+                        }
+                    };
+                    self.accumulate(&mut adjoint, a, v);
+                }
+                Node::Binary(op, a, b) => {
+                    // Operands without inputs get no adjoint; skip building their partials.
+                    let (need_a, need_b) =
+                        (!self.deps[a.index()].is_empty(), !self.deps[b.index()].is_empty());
+                    let (va, vb) = match op {
+                        Add => (adj, adj),
+                        Sub => (adj, if need_b { self.unary(Neg, adj) } else { zero }),
+                        Mul => {
+                            let va = if need_a { self.binary(Mul, adj, b) } else { zero };
+                            let vb = if need_b { self.binary(Mul, adj, a) } else { zero };
+                            (va, vb)
+                        }
+                        Div => {
+                            let va = self.binary(Div, adj, b);
+                            let vb = if need_b {
+                                // d(a/b)/db = -(a/b)/b, reusing the quotient node.
+                                let q = self.binary(Mul, va, n);
+                                self.unary(Neg, q)
+                            } else {
+                                zero
+                            };
+                            (va, vb)
+                        }
+                        Pow => {
+                            // d/da = b a^(b-1) (valid for negative a with integer b; with a
+                            // constant exponent b - 1 folds); d/db = a^b log a.
+                            let va = if need_a {
+                                let bm1 = self.binary(Sub, b, one);
+                                let p = self.binary(Pow, a, bm1);
+                                let f = self.binary(Mul, b, p);
+                                self.binary(Mul, adj, f)
+                            } else {
+                                zero
+                            };
+                            let vb = if need_b {
+                                let la = self.unary(Log, a);
+                                let f = self.binary(Mul, n, la);
+                                self.binary(Mul, adj, f)
+                            } else {
+                                zero
+                            };
+                            (va, vb)
+                        }
+                        Atan2 => {
+                            // atan2(y, x): d/dy = x / r2, d/dx = -y / r2.
+                            let a2 = self.binary(Mul, a, a);
+                            let b2 = self.binary(Mul, b, b);
+                            let r2 = self.binary(Add, a2, b2);
+                            let s = self.binary(Div, adj, r2);
+                            let va = if need_a { self.binary(Mul, s, b) } else { zero };
+                            let vb = if need_b {
+                                let p = self.binary(Mul, s, a);
+                                self.unary(Neg, p)
+                            } else {
+                                zero
+                            };
+                            (va, vb)
+                        }
+                        Min | Max => {
+                            // The selected operand takes the adjoint; at a tie each takes half,
+                            // matching the forward rule's mean.
+                            let c = if op == Min {
+                                self.binary(Sub, b, a)
+                            } else {
+                                self.binary(Sub, a, b)
+                            };
+                            (self.select(c, adj, zero), self.select(c, zero, adj))
+                        }
+                    };
+                    self.accumulate(&mut adjoint, a, va);
+                    self.accumulate(&mut adjoint, b, vb);
+                }
+            }
+        }
+        gradient.sort_unstable_by_key(|e| e.0);
+        gradient
+    }
+
+    /// Adds `v` to the adjoint of `n` (nodes without inputs and zero contributions are skipped).
+    fn accumulate(&mut self, adjoint: &mut HashMap<NodeId, NodeId>, n: NodeId, v: NodeId) {
+        if self.deps[n.index()].is_empty() || self.as_constant(v) == Some(0.0) {
+            return;
+        }
+        let sum = match adjoint.get(&n) {
+            Some(&old) => self.binary(BinaryOp::Add, old, v),
+            None => v,
+        };
+        adjoint.insert(n, sum);
+    }
+
     /// The value if the node is a constant.
     pub fn as_constant(&self, node: NodeId) -> Option<f64> {
         match self.nodes[node.index()] {
@@ -1021,6 +1220,37 @@ mod tests {
         assert_eq!(g.display(ddc), "6 * x0", "constant factors are combined");
         let dx = g.derivative(x, 0);
         assert_eq!(g.as_constant(dx), Some(1.0));
+    }
+
+    #[test]
+    fn reverse_gradient_agrees_with_forward_derivatives() {
+        let mut g = Graph::new();
+        let x = g.input(0);
+        let y = g.input(1);
+        let z = g.input(2);
+        let xy = g.binary(Mul, x, y);
+        let s = g.unary(Sin, xy);
+        let q = g.binary(Div, s, z);
+        let m = g.binary(Max, q, y);
+        let p = g.binary(Pow, m, x);
+        let f0 = g.binary(Atan2, p, z);
+        let f1 = g.unary(Abs, q);
+        let w0 = g.input(3);
+        let w1 = g.input(4);
+        let grad = g.gradient(&[f0, f1], &[w0, w1]);
+        let cols: Vec<usize> = grad.iter().map(|e| e.0).collect();
+        assert_eq!(cols, [0, 1, 2]);
+        let point = [0.7, 1.3, -0.4, 2.0, -3.0];
+        for (j, gj) in grad {
+            let d0 = g.derivative(f0, j);
+            let d1 = g.derivative(f1, j);
+            let v = g.evaluate(&[gj, d0, d1], &point);
+            let want = point[3] * v[1] + point[4] * v[2];
+            // Same derivative rules in another order: agreement to rounding.
+            assert!((v[0] - want).abs() <= 1e-13 * (1.0 + want.abs()), "{j}: {} vs {want}", v[0]);
+        }
+        let c = g.constant(3.0);
+        assert!(g.gradient(&[c], &[w0]).is_empty());
     }
 
     #[test]
