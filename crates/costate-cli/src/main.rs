@@ -4,9 +4,15 @@
 //! It holds no language or numeric logic of its own.
 
 mod check_cmd;
+mod codes;
 mod files;
 mod fmt_cmd;
+mod pipeline;
 mod render;
+mod report;
+mod run;
+mod solve_cmd;
+mod test_cmd;
 
 use std::io::IsTerminal;
 use std::path::PathBuf;
@@ -51,6 +57,31 @@ enum Command {
         #[arg(long)]
         check: bool,
     },
+    /// Solve a problem: iteration log, summary, and the solution files.
+    Solve {
+        /// The problem file (`*.costate`).
+        file: PathBuf,
+        /// Number of shooting intervals (overrides the file's `solve` block).
+        #[arg(long, value_parser = clap::value_parser!(u32).range(1..=100_000))]
+        intervals: Option<u32>,
+        /// Folder for `NAME.solution.json` and `NAME.csv`.
+        #[arg(long, default_value = ".")]
+        out: PathBuf,
+        /// Summary format on standard output.
+        #[arg(long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+        /// No iteration log.
+        #[arg(long)]
+        quiet: bool,
+        /// Start from a previous solution file of the same problem.
+        #[arg(long, value_name = "SOLUTION_JSON")]
+        warm: Option<PathBuf>,
+    },
+    /// Solve every problem file with an `expect` block and compare the results.
+    Test {
+        /// Files or folders (searched recursively for `*.costate`); default: the current folder.
+        paths: Vec<PathBuf>,
+    },
 }
 
 #[derive(Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -77,6 +108,14 @@ fn main() -> ExitCode {
     let code = match cli.command {
         Command::Check { files, format } => check_cmd::run(&files, format, color),
         Command::Fmt { files, check } => fmt_cmd::run(&files, check),
+        Command::Solve { file, intervals, out, format, quiet, warm } => {
+            let overrides = run::Overrides { intervals: intervals.map(|n| n as usize) };
+            solve_cmd::run(&solve_cmd::SolveArgs { file, overrides, out, format, quiet, warm }, color)
+        }
+        Command::Test { paths } => {
+            let paths = if paths.is_empty() { vec![PathBuf::from(".")] } else { paths };
+            test_cmd::run(&paths, color)
+        }
     };
     ExitCode::from(code)
 }
