@@ -613,6 +613,43 @@ mod tests {
     }
 
     #[test]
+    fn repeated_outputs_add_their_weights() {
+        let mut g = Graph::new();
+        let x = g.input(0);
+        let c = g.unary(Cos, x);
+        let f = Function::compile(&mut g, 1, &[c, c]);
+        let mut ws = f.workspace();
+        let mut h = [0.0];
+        f.eval_hessian(&[0.3], &[2.0, 5.0], &mut h, &mut ws);
+        assert_eq!(f.hessian_pattern(), &[(0, 0)]);
+        assert!((h[0] + 7.0 * 0.3f64.cos()).abs() <= 1e-15, "{}", h[0]);
+    }
+
+    #[test]
+    fn functions_of_different_widths_share_one_graph() {
+        // f_a has one input, so its Hessian weight is graph input 1, which f_b uses as x1.
+        let mut g = Graph::new();
+        let x0 = g.input(0);
+        let x1 = g.input(1);
+        let x2 = g.input(2);
+        let sq = g.binary(Mul, x0, x0);
+        let p = g.binary(Mul, x0, x1);
+        let fb_out = g.binary(Mul, p, x2);
+        let fa = Function::compile(&mut g, 1, &[sq]);
+        let fb = Function::compile(&mut g, 3, &[fb_out, sq]);
+        let mut ws = fa.workspace();
+        let mut h = [0.0];
+        fa.eval_hessian(&[4.0], &[5.0], &mut h, &mut ws);
+        assert_eq!(h, [10.0]);
+        let mut ws = fb.workspace();
+        assert_eq!(fb.hessian_pattern(), &[(0, 0), (1, 0), (2, 0), (2, 1)]);
+        let mut h = [0.0; 4];
+        let (a, b, c) = (2.0, 3.0, 7.0);
+        fb.eval_hessian(&[a, b, c], &[1.5, -2.0], &mut h, &mut ws);
+        assert_eq!(h, [-4.0, 1.5 * c, 1.5 * b, 1.5 * a]);
+    }
+
+    #[test]
     fn structural_zeros_are_never_emitted() {
         let mut g = Graph::new();
         let x0 = g.input(0);
