@@ -110,11 +110,6 @@ impl Ratio {
         Ratio::new(a.checked_mul(c)?, b.checked_mul(d)?)
     }
 
-    pub fn neg(self) -> Ratio {
-        // `num` comes from a reduced i32 pair; negating i32::MIN is the one overflow, saturate it.
-        Ratio { num: self.num.checked_neg().unwrap_or(i32::MAX), den: self.den }
-    }
-
     /// The simple fraction (denominator at most 12) equal to `x` within 1e-9, if any: how a
     /// folded exponent such as `0.5` or `1/3` becomes a dimension exponent.
     pub fn from_f64(x: f64) -> Option<Ratio> {
@@ -125,6 +120,15 @@ impl Ratio {
             let n = (x * den as f64).round();
             ((x * den as f64 - n).abs() < 1e-9).then(|| Ratio::new(n as i64, den)).flatten()
         })
+    }
+}
+
+impl std::ops::Neg for Ratio {
+    type Output = Ratio;
+
+    fn neg(self) -> Ratio {
+        // `num` comes from a reduced i32 pair; negating i32::MIN is the one overflow: saturate.
+        Ratio { num: self.num.checked_neg().unwrap_or(i32::MAX), den: self.den }
     }
 }
 
@@ -232,7 +236,7 @@ impl Dimension {
     }
 
     pub fn inverse(&self) -> Dimension {
-        Dimension { exps: self.exps.map(Ratio::neg) }
+        Dimension { exps: self.exps.map(|e| -e) }
     }
 
     pub fn checked_pow(&self, r: Ratio) -> Option<Dimension> {
@@ -251,7 +255,7 @@ impl fmt::Display for Dimension {
                 .iter()
                 .filter_map(|&b| {
                     let e = self.exponent(b);
-                    let e = if positive { e } else { e.neg() };
+                    let e = if positive { e } else { -e };
                     (e.num > 0).then(|| {
                         if e == Ratio::ONE {
                             b.symbol().to_string()
