@@ -3,3 +3,29 @@
 //!
 //! Architecture invariant: knows nothing of syntax, names, units or spans; sees only
 //! `costate_model::Ocp`. Does no IO.
+//!
+//! Layers (each module's docs say what it owns):
+//! - [`nlp`]: the sparse NLP interface the SQP solves;
+//! - [`qp`]: convex QP subproblems behind a trait, solved by Clarabel by default;
+//! - [`hessian`]: block BFGS and convexification of exact Hessians;
+//! - [`settings`]: the SQP's settings;
+//! - [`sqp`]: the SQP method as an argmin solver, its statuses, results and log rows.
+
+pub mod hessian;
+pub mod integrate;
+pub mod nlp;
+pub mod qp;
+pub mod settings;
+pub mod sqp;
+pub mod transcribe;
+
+pub use nlp::{EvalError, EvalFailure, EvalPart, Nlp, Pattern};
+pub use qp::{ClarabelQp, ClarabelQpSettings, QpError, QpProblem, QpSolution, QpSolver, QpStatus, Triplets};
+pub use settings::{HessianMode, SettingsError, SqpSettings};
+pub use sqp::{
+    log_header, log_line, solve_nlp, IterationRow, Residuals, RowObserver, SolveError, Sqp, SqpResult, SqpState,
+    SqpStatus, StallReason, StepKind, Timing, ViolatedRow,
+};
+pub use transcribe::{
+    solve_ocp, Finding, MultipleShooting, OcpSettings, OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource,
+};

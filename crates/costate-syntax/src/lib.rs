@@ -8,10 +8,17 @@
 //! `costate-check`. It does no IO and depends on no other costate crate.
 
 pub mod ast;
+pub mod codes;
 pub mod diagnostic;
+pub mod fmt;
+pub mod lexer;
 pub mod line_index;
+mod parser;
 mod span;
+pub mod testing;
 
 pub use diagnostic::{closest_name, Code, Diagnostic, Label, Severity};
+pub use lexer::{lex, Token, TokenKind};
 pub use line_index::{LineCol, LineIndex};
+pub use parser::{parse, Parse, BLOCK_KEYWORDS, LINE_KEYWORDS};
 pub use span::Span;

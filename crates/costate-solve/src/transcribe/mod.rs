@@ -1,0 +1,327 @@
+//! Direct multiple shooting: an [`Ocp`] becomes a sparse [`crate::Nlp`] ([`MultipleShooting`])
+//! that the crate's SQP solves; [`solve_ocp`] runs the whole thing and reports the result in
+//! the problem's terms ([`OcpSolution`]).
+//!
+//! Owns the variable and row layout ([`Layout`]), the evaluation of the NLP from the interval
+//! integrator and the compiled functions, the starting point (guesses or a warm start), and the
+//! translation of solver outcomes back to functions, rows, states and nodes. Must not: change
+//! the SQP, integrators or model; know names or source spans (a [`Finding`] or [`Violation`] is
+//! what `costate-lower`'s source map turns into a diagnostic); do IO.
+//!
+//! # The NLP
+//! Nodes `k = 0..=N` sit at fractions `s_k` of the horizon (uniform by default, any strictly
+//! increasing mesh from 0 to 1 allowed). Variables node by node (`x_k`, then `u_k` where the
+//! node has its own control: `k < N` for piecewise-constant controls, every node for linear
+//! ones), then the parameters, then `tf` when free. Rows: continuity
+//! `x_{k+1} - F_k(x_k, u_k, [u_{k+1}], p, t_k, h_k) = 0` per interval, path rows at every node
+//! (the last node of piecewise-constant controls uses the last interval's control), then the
+//! boundary rows `b(t0, tf, x_0, x_N, p, Q)` with `Q` the sum of the interval integrals. State,
+//! start, end, control, parameter and end-time bounds are variable bounds. The objective
+//! `phi(t0, tf, x_0, x_N, p, Q)` has an exact gradient; there is no exact Hessian, so the SQP
+//! uses its damped block BFGS with one block per node.
+
+mod layout;
+mod shooting;
+
+use std::sync::atomic::AtomicBool;
+use std::sync::{mpsc, Arc};
+
+use costate_model::{FunctionKind, Ocp};
+
+use crate::integrate::IntegratorSettings;
+use crate::nlp::{EvalError, EvalPart, Nlp};
+use crate::settings::SqpSettings;
+use crate::sqp::{solve_nlp, IterationRow, SqpResult, SqpStatus, StallReason, Timing};
+
+pub use layout::{decode_tag, function_tag, Layout, ViolationSource};
+pub use shooting::MultipleShooting;
+
+/// Settings of [`solve_ocp`].
+#[derive(Clone, Debug, PartialEq)]
+pub struct OcpSettings {
+    /// Number of shooting intervals `N` (uniform mesh), at least 1. Default 50.
+    pub intervals: usize,
+    /// Interval integrator. Default: RK4 with 2 substeps and piecewise-constant controls
+    /// (2 substeps keep the integration error well below the control discretisation error at
+    /// common interval counts, at twice the cost of one).
+    pub integrator: IntegratorSettings,
+    /// The SQP's settings. Default: [`SqpSettings::default`].
+    pub sqp: SqpSettings,
+}
+
+impl Default for OcpSettings {
+    fn default() -> Self {
+        OcpSettings {
+            intervals: 50,
+            integrator: IntegratorSettings { substeps: 2, ..IntegratorSettings::default() },
+            sqp: SqpSettings::default(),
+        }
+    }
+}
+
+/// A trajectory on the nodes: the solution's, or a warm start.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Trajectory {
+    /// Node times, `N + 1` values.
+    pub times: Vec<f64>,
+    /// `[state][node]`.
+    pub states: Vec<Vec<f64>>,
+    /// `[control][node]`, `N + 1` values; for piecewise-constant controls the last node repeats
+    /// the last interval's value.
+    pub controls: Vec<Vec<f64>>,
+    pub params: Vec<f64>,
+    pub end_time: f64,
+}
+
+/// Where an evaluation failed: the function and output row, and the node (path) or interval
+/// (dynamics, integrands) index; `None` for endpoint functions.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Finding {
+    pub kind: FunctionKind,
+    pub row: usize,
+    pub node: Option<usize>,
+    pub message: String,
+}
+
+/// A constraint or bound left violated: what, where (node, or interval for continuity rows),
+/// and by how much in the problem's units.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Violation {
+    pub what: ViolationSource,
+    pub node: Option<usize>,
+    pub amount: f64,
+}
+
+/// How a solve ended.
+#[derive(Clone, Debug, PartialEq)]
+pub enum OcpStatus {
+    Solved,
+    SolvedReducedAccuracy,
+    /// The violation cannot be reduced further; the most violated rows and bounds, largest
+    /// first.
+    LocallyInfeasible {
+        violations: Vec<Violation>,
+    },
+    IterationLimit,
+    TimeLimit,
+    EvaluationFailed(Finding),
+    Interrupted,
+    /// The SQP could make no further progress and even its loosened tolerances do not hold
+    /// (not named in the original sketch of this API; the SQP has this outcome and no other
+    /// status describes it honestly).
+    Stalled(StallReason),
+}
+
+impl OcpStatus {
+    pub fn is_solved(&self) -> bool {
+        matches!(self, OcpStatus::Solved | OcpStatus::SolvedReducedAccuracy)
+    }
+}
+
+/// Everything [`solve_ocp`] returns.
+#[derive(Clone, Debug, PartialEq)]
+pub struct OcpSolution {
+    pub status: OcpStatus,
+    /// The objective as minimised (the negated user objective when `ocp.maximize`).
+    pub objective: f64,
+    pub trajectory: Trajectory,
+    /// The integrals `Q` at the returned point (NaN when they cannot be evaluated there).
+    pub integrals: Vec<f64>,
+    /// Costate estimates `[state][node]`, the derivative of the optimal (discretised) cost with
+    /// respect to the state at a node: node `k >= 1` is `-lambda` of the continuity row of
+    /// interval `k - 1` (with the Lagrangian `f + lambda' c` of `nlp.rs`), node 0 is `-nu`, the
+    /// negated bound multiplier of `x_0` (0 for a free, inactive start, as transversality
+    /// requires). For `J = integral(L) + phi`, they approximate `p(t)` of `H = L + p' f`.
+    pub costates: Vec<Vec<f64>>,
+    /// Path constraint multipliers `[row][node]` (sign convention of `nlp.rs`).
+    pub path_multipliers: Vec<Vec<f64>>,
+    pub boundary_multipliers: Vec<f64>,
+    /// Largest absolute violation of a constraint row or variable bound at the returned point
+    /// (NaN when the constraints cannot be evaluated there).
+    pub max_violation: f64,
+    pub iterations: usize,
+    pub timing: Timing,
+    pub history: Vec<IterationRow>,
+}
+
+/// Most violations listed for a locally infeasible outcome.
+const MAX_VIOLATIONS: usize = 10;
+
+/// Transcribe `ocp` on `settings.intervals` uniform intervals and solve it. `warm` starts from
+/// a previous trajectory (any mesh) instead of the guesses; `cancel`, when raised, stops the
+/// solve with [`OcpStatus::Interrupted`]; `observer` sees every iteration row as it happens
+/// (on the calling thread). `Err` only for invalid settings or an inconsistent problem.
+pub fn solve_ocp(
+    ocp: &Ocp,
+    settings: &OcpSettings,
+    warm: Option<&Trajectory>,
+    cancel: Option<Arc<AtomicBool>>,
+    observer: &mut dyn FnMut(&IterationRow),
+) -> Result<OcpSolution, String> {
+    settings.integrator.validate().map_err(|e| e.to_string())?;
+    settings.sqp.validate().map_err(|e| e.to_string())?;
+    let mut nlp = MultipleShooting::new(ocp, settings.intervals, settings.integrator)?;
+    if let Some(t) = warm {
+        nlp.warm_start(t)?;
+    }
+    // The SQP's observers must be 'static, the caller's is not: the solve runs on a scoped
+    // thread and its rows come back over a channel, so the caller still sees them live.
+    let sqp_settings = &settings.sqp;
+    let nlp_ref = &mut nlp;
+    let outcome = std::thread::scope(|scope| {
+        let (tx, rx) = mpsc::channel::<IterationRow>();
+        let handle = scope.spawn(move || {
+            let obs: Box<dyn FnMut(&IterationRow)> = Box::new(move |row: &IterationRow| {
+                // A closed receiver only means nobody listens any more.
+                let _ = tx.send(row.clone());
+            });
+            solve_nlp(nlp_ref, sqp_settings, cancel, Some(obs))
+        });
+        for row in rx {
+            observer(&row);
+        }
+        handle.join()
+    });
+    let result = match outcome {
+        Ok(Ok(r)) => r,
+        Ok(Err(e)) => return Err(e.to_string()),
+        Err(_) => return Err("internal error: the solver thread panicked".into()),
+    };
+    Ok(report(&mut nlp, result))
+}
+
+/// The solution in the problem's terms.
+fn report(nlp: &mut MultipleShooting, r: SqpResult) -> OcpSolution {
+    let l = nlp.layout().clone();
+    let n = l.n_vars();
+    let m = l.n_constraints();
+    let mut w = r.x.clone();
+    if w.len() != n {
+        w = vec![0.0; n];
+        nlp.initial_point(&mut w);
+    }
+    let times = nlp.times(&w);
+    let trajectory = Trajectory {
+        states: (0..l.nx).map(|i| (0..l.n_nodes()).map(|k| w[l.x(k, i)]).collect()).collect(),
+        controls: (0..l.nu).map(|i| (0..l.n_nodes()).map(|k| w[l.u_at(k, i)]).collect()).collect(),
+        params: (0..l.np).map(|i| w[l.p(i)]).collect(),
+        end_time: nlp.end_time(&w),
+        times,
+    };
+    let integrals = nlp.integrals(&w).unwrap_or_else(|_| vec![f64::NAN; l.nq]);
+
+    let lam = if r.constraint_multipliers.len() == m {
+        r.constraint_multipliers.clone()
+    } else {
+        vec![0.0; m]
+    };
+    let nu =
+        if r.bound_multipliers.len() == n { r.bound_multipliers.clone() } else { vec![0.0; n] };
+    let costates = (0..l.nx)
+        .map(|i| {
+            (0..l.n_nodes())
+                .map(|k| if k == 0 { -nu[l.x(0, i)] } else { -lam[l.continuity_row(k - 1, i)] })
+                .collect()
+        })
+        .collect();
+    let path_multipliers =
+        (0..l.ng).map(|g| (0..l.n_nodes()).map(|k| lam[l.path_row(k, g)]).collect()).collect();
+    let boundary_multipliers = (0..l.nb).map(|b| lam[l.boundary_row(b)]).collect();
+
+    // Violations at the returned point, in the problem's units.
+    let (mut cl, mut cu) = (vec![0.0; m], vec![0.0; m]);
+    nlp.constraint_bounds(&mut cl, &mut cu);
+    let (mut wl, mut wu) = (vec![0.0; n], vec![0.0; n]);
+    nlp.variable_bounds(&mut wl, &mut wu);
+    let mut c = r.constraints.clone();
+    if c.len() != m || c.iter().any(|v| !v.is_finite()) {
+        c = vec![f64::NAN; m];
+        let _ = nlp.constraints(&w, &mut c);
+    }
+    let outside = |v: f64, lo: f64, hi: f64| {
+        if v.is_nan() {
+            f64::NAN
+        } else {
+            (lo - v).max(v - hi).max(0.0)
+        }
+    };
+    let mut violations: Vec<Violation> = Vec::new();
+    let mut max_violation: f64 = 0.0;
+    for i in 0..m {
+        let a = outside(c[i], cl[i], cu[i]);
+        max_violation =
+            if a.is_nan() || max_violation.is_nan() { f64::NAN } else { max_violation.max(a) };
+        if a > 0.0 {
+            let (what, node) = l.decode_row(i);
+            violations.push(Violation { what, node, amount: a });
+        }
+    }
+    for j in 0..n {
+        let a = outside(w[j], wl[j], wu[j]);
+        if !max_violation.is_nan() {
+            max_violation = max_violation.max(a);
+        }
+        if a > 0.0 {
+            let (what, node) = l.decode_variable(j);
+            violations.push(Violation { what, node, amount: a });
+        }
+    }
+
+    let status = match r.status {
+        SqpStatus::Solved => OcpStatus::Solved,
+        SqpStatus::SolvedReducedAccuracy => OcpStatus::SolvedReducedAccuracy,
+        SqpStatus::IterationLimit => OcpStatus::IterationLimit,
+        SqpStatus::TimeLimit => OcpStatus::TimeLimit,
+        SqpStatus::Interrupted => OcpStatus::Interrupted,
+        SqpStatus::Stalled { reason } => OcpStatus::Stalled(reason),
+        SqpStatus::EvaluationFailed { error } => {
+            OcpStatus::EvaluationFailed(finding(nlp, &l, &error))
+        }
+        SqpStatus::LocallyInfeasible { rows } => {
+            // The solver's rows are measured after scaling; sort ours (unscaled, bounds
+            // included) but make sure every row it named is there.
+            for v in &rows {
+                let (what, node) = l.decode_row(v.row);
+                if !violations.iter().any(|x| x.what == what && x.node == node) {
+                    violations.push(Violation { what, node, amount: v.violation });
+                }
+            }
+            violations.sort_by(|a, b| b.amount.total_cmp(&a.amount));
+            violations.truncate(MAX_VIOLATIONS);
+            OcpStatus::LocallyInfeasible { violations }
+        }
+    };
+    OcpSolution {
+        status,
+        objective: r.objective,
+        trajectory,
+        integrals,
+        costates,
+        path_multipliers,
+        boundary_multipliers,
+        max_violation,
+        iterations: usize::try_from(r.iterations).unwrap_or(usize::MAX),
+        timing: r.timing,
+        history: r.history,
+    }
+}
+
+/// The function, row and node an evaluation failure names.
+fn finding(nlp: &MultipleShooting, l: &Layout, e: &EvalError) -> Finding {
+    let note = nlp.last_failure.as_ref().filter(|n| n.tag == e.tag && n.stage == e.stage);
+    let message = note.map_or_else(|| e.to_string(), |n| n.message.clone());
+    if let Some((kind, row)) = decode_tag(e.tag) {
+        return Finding { kind, row, node: e.stage, message };
+    }
+    // Untagged: the solver found the bad value itself; the output index says where.
+    let (kind, row, node) = match (e.part, e.index) {
+        (EvalPart::Constraints, Some(i)) if i < l.n_constraints() => match l.decode_row(i) {
+            (ViolationSource::Continuity(s), k) => (FunctionKind::Dynamics, s, k),
+            (ViolationSource::Function(kind, r), k) => (kind, r, k),
+            (_, k) => (FunctionKind::Dynamics, 0, k),
+        },
+        (EvalPart::Constraints | EvalPart::Jacobian, _) => (FunctionKind::Dynamics, 0, e.stage),
+        _ => (FunctionKind::Objective, 0, None),
+    };
+    Finding { kind, row, node, message }
+}

@@ -1,0 +1,125 @@
+//! Property tests: `parse` never panics and always returns a tree, on arbitrary text and on
+//! random mutations of the fixtures (valid and invalid). Bounded to 256 cases per property.
+
+use proptest::prelude::*;
+use std::path::Path;
+
+fn fixtures() -> Vec<String> {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures");
+    let mut texts = Vec::new();
+    for dir in ["parse", "syntax_errors"] {
+        for entry in std::fs::read_dir(root.join(dir)).expect("fixture directory exists") {
+            texts.push(std::fs::read_to_string(entry.expect("entry").path()).expect("readable fixture"));
+        }
+    }
+    texts.sort();
+    texts
+}
+
+/// Spans must lie inside the text and on character boundaries, or renderers would panic.
+fn assert_spans_valid(text: &str, parse: &costate_syntax::Parse) {
+    for d in &parse.diagnostics {
+        for span in std::iter::once(d.primary.span).chain(d.labels.iter().map(|l| l.span)) {
+            assert!(span.start <= span.end && span.end <= text.len(), "span {span:?} out of {}", text.len());
+            assert!(text.is_char_boundary(span.start) && text.is_char_boundary(span.end), "span {span:?} splits a character");
+        }
+        assert!(!d.message.is_empty());
+    }
+}
+
+/// A piece of source that is likely to meet the grammar half-way.
+fn fragment() -> impl Strategy<Value = String> {
+    prop_oneof![
+        Just("problem p\n".to_string()),
+        Just("state {".to_string()),
+        Just("}".to_string()),
+        Just("x' = ".to_string()),
+        Just("(".to_string()),
+        Just(")".to_string()),
+        Just("[m/s^2]".to_string()),
+        Just(" .. ".to_string()),
+        Just("\n".to_string()),
+        Just("/// doc\n".to_string()),
+        Just("// c\n".to_string()),
+        Just("-".to_string()),
+        Just("^".to_string()),
+        Just("start 0, end in 1 .. 2".to_string()),
+        Just("within 5%".to_string()),
+        Just("<=".to_string()),
+        "[a-z]{1,6}",
+        "[0-9.eE+-]{1,5}",
+        "[ -~θ≤\u{0}\t\r]{1,4}",
+    ]
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(256))]
+
+    #[test]
+    fn parse_never_panics_on_arbitrary_text(text in "\\PC{0,400}") {
+        let parse = costate_syntax::parse(&text);
+        assert_spans_valid(&text, &parse);
+    }
+
+    #[test]
+    fn parse_never_panics_on_grammar_soup(parts in proptest::collection::vec(fragment(), 0..60)) {
+        let text = parts.concat();
+        let parse = costate_syntax::parse(&text);
+        assert_spans_valid(&text, &parse);
+    }
+
+    #[test]
+    fn parse_never_panics_on_mutated_fixtures(
+        which in any::<prop::sample::Index>(),
+        edits in proptest::collection::vec((any::<prop::sample::Index>(), 0usize..4, fragment()), 1..8),
+    ) {
+        let all = fixtures();
+        let mut text = which.get(&all).clone();
+        for (at, kind, insert) in edits {
+            let mut cut = at.index(text.len() + 1);
+            while !text.is_char_boundary(cut) {
+                cut -= 1;
+            }
+            match kind {
+                // delete a few bytes
+                0 => {
+                    let mut end = (cut + 3).min(text.len());
+                    while !text.is_char_boundary(end) {
+                        end += 1;
+                    }
+                    text.replace_range(cut..end, "");
+                }
+                // truncate
+                1 => text.truncate(cut),
+                // insert a fragment
+                _ => text.insert_str(cut, &insert),
+            }
+        }
+        let parse = costate_syntax::parse(&text);
+        assert_spans_valid(&text, &parse);
+    }
+}
+
+#[test]
+fn an_empty_file_reports_the_missing_header_only() {
+    let parse = costate_syntax::parse("");
+    assert_eq!(parse.diagnostics.len(), 1);
+    assert_eq!(parse.diagnostics[0].code, costate_syntax::codes::MISSING_PROBLEM_HEADER);
+    assert!(parse.file.items.is_empty());
+}
+
+#[test]
+fn the_deepest_accepted_entries_parse_within_a_test_thread_stack() {
+    // 64 parentheses and 2000 operators are the accepted limits; both must parse (and the
+    // tree must drop) without exhausting the 2 MiB stack of a test thread in a debug build.
+    let nested = format!("problem p\nconst {{ a = {}1{} }}\n", "(".repeat(64), ")".repeat(64));
+    let parse = costate_syntax::parse(&nested);
+    assert!(parse.diagnostics.is_empty(), "{:?}", parse.diagnostics);
+    let long = format!("problem p\nconst {{ a = 1{} }}\n", " + -x ^ 2".repeat(666));
+    let parse = costate_syntax::parse(&long);
+    assert!(parse.diagnostics.is_empty(), "{:?}", parse.diagnostics);
+    let too_long = format!("problem p\nconst {{ a = 1{} }}\n", " + 1".repeat(2001));
+    let parse = costate_syntax::parse(&too_long);
+    assert_eq!(parse.diagnostics.len(), 1);
+    assert_eq!(parse.diagnostics[0].code, costate_syntax::codes::NESTING_TOO_DEEP);
+}
