@@ -23,11 +23,18 @@ pub enum ViolationSource {
     EndTime,
 }
 
-/// Variable and constraint layout. Variables, node by node: `x_k` (`nx`) then `u_k` (`nu`, for
+/// Variable and constraint layout. Variables, node by node: `x_k` (`nx`), `u_k` (`nu`, for
 /// every node with its own control: `k < N` for piecewise-constant controls, all nodes for
-/// piecewise-linear ones); then `p` (`np`); then `tf` when the end time is free. Constraint
-/// rows: continuity `N * nx` (interval by interval), path `(N + 1) * ng` (node by node), then
-/// the `nb` boundary rows.
+/// piecewise-linear ones), then a copy `p_k` of the parameters (`np`) and, when the end time is
+/// free, a copy `tf_k` of it. Constraint rows: continuity `N * nx` (interval by interval), copy
+/// rows `N * (np + 1 if free)` (`p_{k+1} - p_k = 0`, `tf_{k+1} - tf_k = 0`), path
+/// `(N + 1) * ng` (node by node), then the `nb` boundary rows.
+///
+/// Why copies: interval `k` then depends only on node `k`'s block (and linearly on `x_{k+1}`),
+/// so the Lagrangian Hessian is block diagonal by node (H. G. Bock, K. J. Plitt, "A multiple
+/// shooting algorithm for direct solution of optimal control problems", IFAC 1984) and the
+/// SQP's block BFGS loses nothing; with one shared `tf` every block's curvature pairs would be
+/// polluted by the cross terms in `tf`, which in a test stalled a minimum-time problem.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct Layout {
     pub nx: usize,
@@ -43,7 +50,6 @@ pub struct Layout {
     pub linear_controls: bool,
     pub free_end: bool,
     node_start: Vec<usize>,
-    p_start: usize,
     n_vars: usize,
 }
 
@@ -65,23 +71,10 @@ impl Layout {
         for k in 0..=intervals {
             node_start.push(at);
             at += nx + if linear_controls || k < intervals { nu } else { 0 };
+            at += np + usize::from(free_end);
         }
-        let p_start = at;
-        let n_vars = p_start + np + usize::from(free_end);
-        Layout {
-            nx,
-            nu,
-            np,
-            nq,
-            ng,
-            nb,
-            intervals,
-            linear_controls,
-            free_end,
-            node_start,
-            p_start,
-            n_vars,
-        }
+        let n_vars = at;
+        Layout { nx, nu, np, nq, ng, nb, intervals, linear_controls, free_end, node_start, n_vars }
     }
 
     pub fn n_vars(&self) -> usize {
@@ -92,8 +85,13 @@ impl Layout {
         self.intervals + 1
     }
 
+    /// Copy rows per interval: `np`, plus one for a free end time.
+    pub fn n_copies(&self) -> usize {
+        self.np + usize::from(self.free_end)
+    }
+
     pub fn n_constraints(&self) -> usize {
-        self.intervals * self.nx + self.n_nodes() * self.ng + self.nb
+        self.intervals * (self.nx + self.n_copies()) + self.n_nodes() * self.ng + self.nb
     }
 
     /// Variable index of state `i` at node `k`.
@@ -113,17 +111,39 @@ impl Layout {
         self.node_start[k] + self.nx + i
     }
 
+    /// Controls held by node `k`.
+    fn nu_at(&self, k: usize) -> usize {
+        if self.linear_controls || k < self.intervals {
+            self.nu
+        } else {
+            0
+        }
+    }
+
+    /// Variable index of node `k`'s copy of parameter `i`.
+    pub fn p_at(&self, k: usize, i: usize) -> usize {
+        self.node_start[k] + self.nx + self.nu_at(k) + i
+    }
+
+    /// Variable index of node `k`'s copy of a free end time.
+    pub fn tf_at(&self, k: usize) -> Option<usize> {
+        self.free_end.then(|| self.node_start[k] + self.nx + self.nu_at(k) + self.np)
+    }
+
+    /// The copy of parameter `i` the endpoint functions read (node 0's).
     pub fn p(&self, i: usize) -> usize {
-        self.p_start + i
+        self.p_at(0, i)
     }
 
+    /// The copy of a free end time the endpoint functions read (the last node's).
     pub fn tf(&self) -> Option<usize> {
-        self.free_end.then_some(self.n_vars - 1)
+        self.tf_at(self.intervals)
     }
 
-    /// Variables of node `k` (its state and, if any, its own control).
+    /// Variables of node `k`: its state, its own control if any, its parameter and end-time
+    /// copies.
     pub fn node_range(&self, k: usize) -> std::ops::Range<usize> {
-        let end = if k < self.intervals { self.node_start[k + 1] } else { self.p_start };
+        let end = if k < self.intervals { self.node_start[k + 1] } else { self.n_vars };
         self.node_start[k]..end
     }
 
@@ -131,44 +151,57 @@ impl Layout {
         k * self.nx + i
     }
 
+    /// Copy row `j` of interval `k`: parameter `j < np`, or the end time for `j == np`.
+    pub fn copy_row(&self, k: usize, j: usize) -> usize {
+        self.intervals * self.nx + k * self.n_copies() + j
+    }
+
     pub fn path_row(&self, k: usize, r: usize) -> usize {
-        self.intervals * self.nx + k * self.ng + r
+        self.intervals * (self.nx + self.n_copies()) + k * self.ng + r
     }
 
     pub fn boundary_row(&self, r: usize) -> usize {
-        self.intervals * self.nx + self.n_nodes() * self.ng + r
+        self.path_row(0, 0) + self.n_nodes() * self.ng + r
     }
 
     /// What constraint row `row` stands for, and its interval (continuity) or node (path).
     pub fn decode_row(&self, row: usize) -> (ViolationSource, Option<usize>) {
         let n_cont = self.intervals * self.nx;
+        let n_copy = self.intervals * self.n_copies();
         let n_path = self.n_nodes() * self.ng;
         if row < n_cont {
             (ViolationSource::Continuity(row % self.nx), Some(row / self.nx))
-        } else if row < n_cont + n_path {
+        } else if row < n_cont + n_copy {
             let r = row - n_cont;
+            let (k, j) = (r / self.n_copies(), r % self.n_copies());
+            let what =
+                if j < self.np { ViolationSource::ParamBound(j) } else { ViolationSource::EndTime };
+            (what, Some(k))
+        } else if row < n_cont + n_copy + n_path {
+            let r = row - n_cont - n_copy;
             (ViolationSource::Function(FunctionKind::Path, r % self.ng), Some(r / self.ng))
         } else {
-            (ViolationSource::Function(FunctionKind::Boundary, row - n_cont - n_path), None)
+            (
+                ViolationSource::Function(FunctionKind::Boundary, row - n_cont - n_copy - n_path),
+                None,
+            )
         }
     }
 
     /// What variable `j` stands for, and its node.
     pub fn decode_variable(&self, j: usize) -> (ViolationSource, Option<usize>) {
-        if j >= self.p_start {
-            return if Some(j) == self.tf() {
-                (ViolationSource::EndTime, None)
-            } else {
-                (ViolationSource::ParamBound(j - self.p_start), None)
-            };
-        }
         // The last node start at or before `j`.
         let k = self.node_start.partition_point(|&s| s <= j) - 1;
         let off = j - self.node_start[k];
+        let nu = self.nu_at(k);
         if off < self.nx {
             (ViolationSource::StateBound(off), Some(k))
-        } else {
+        } else if off < self.nx + nu {
             (ViolationSource::ControlBound(off - self.nx), Some(k))
+        } else if off < self.nx + nu + self.np {
+            (ViolationSource::ParamBound(off - self.nx - nu), Some(k))
+        } else {
+            (ViolationSource::EndTime, Some(k))
         }
     }
 }
@@ -225,13 +258,18 @@ mod tests {
                         seen[j] = true;
                     }
                 }
-                for i in 0..2 {
-                    assert_eq!(l.decode_variable(l.p(i)), (ViolationSource::ParamBound(i), None));
-                    seen[l.p(i)] = true;
-                }
-                if let Some(t) = l.tf() {
-                    assert_eq!(l.decode_variable(t), (ViolationSource::EndTime, None));
-                    seen[t] = true;
+                for k in 0..l.n_nodes() {
+                    for i in 0..2 {
+                        let j = l.p_at(k, i);
+                        assert_eq!(l.decode_variable(j), (ViolationSource::ParamBound(i), Some(k)));
+                        seen[j] = true;
+                    }
+                    if let Some(t) = l.tf_at(k) {
+                        assert_eq!(l.decode_variable(t), (ViolationSource::EndTime, Some(k)));
+                        seen[t] = true;
+                    }
+                    assert!(l.node_range(k).contains(&l.x(k, 0)));
+                    assert!(l.node_range(k).contains(&l.p_at(k, 1)));
                 }
                 assert!(seen.iter().all(|&s| s));
                 assert_eq!(

@@ -10,10 +10,11 @@
 //!
 //! # The NLP
 //! Nodes `k = 0..=N` sit at fractions `s_k` of the horizon (uniform by default, any strictly
-//! increasing mesh from 0 to 1 allowed). Variables node by node (`x_k`, then `u_k` where the
-//! node has its own control: `k < N` for piecewise-constant controls, every node for linear
-//! ones), then the parameters, then `tf` when free. Rows: continuity
-//! `x_{k+1} - F_k(x_k, u_k, [u_{k+1}], p, t_k, h_k) = 0` per interval, path rows at every node
+//! increasing mesh from 0 to 1 allowed). Variables node by node: `x_k`, then `u_k` where the
+//! node has its own control (`k < N` for piecewise-constant controls, every node for linear
+//! ones), then the node's copies of the parameters and of a free `tf` (see [`Layout`] for why).
+//! Rows: continuity `x_{k+1} - F_k(x_k, u_k, [u_{k+1}], p_k, t_k, h_k) = 0` and copy rows
+//! `p_{k+1} = p_k`, `tf_{k+1} = tf_k` per interval, path rows at every node
 //! (the last node of piecewise-constant controls uses the last interval's control), then the
 //! boundary rows `b(t0, tf, x_0, x_N, p, Q)` with `Q` the sum of the interval integrals. State,
 //! start, end, control, parameter and end-time bounds are variable bounds. The objective
@@ -177,8 +178,14 @@ pub fn solve_ocp(
             });
             solve_nlp(nlp_ref, sqp_settings, cancel, Some(obs))
         });
+        // The SQP may hand the same row to its observer twice (e.g. when it stops without a
+        // new iterate); the caller sees each iteration once.
+        let mut last = None;
         for row in rx {
-            observer(&row);
+            if last != Some(row.iteration) {
+                last = Some(row.iteration);
+                observer(&row);
+            }
         }
         handle.join()
     });

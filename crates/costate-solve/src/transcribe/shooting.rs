@@ -174,7 +174,9 @@ impl MultipleShooting {
         if fractions.len() < 2
             || fractions[0] != 0.0
             || fractions[fractions.len() - 1] != 1.0
-            || fractions.windows(2).any(|w| !(w[1] > w[0]))
+            || fractions
+                .windows(2)
+                .any(|w| w[1].partial_cmp(&w[0]) != Some(std::cmp::Ordering::Greater))
         {
             return Err("mesh fractions must increase strictly from 0 to 1".into());
         }
@@ -238,7 +240,7 @@ impl MultipleShooting {
         let mut var_scale = vec![1.0; n];
         let mut start = vec![0.0; n];
         let positive = |s: f64| if s.is_finite() && s > 0.0 { s } else { 1.0 };
-        for k in 0..layout.n_nodes() {
+        for (k, &frac) in fractions.iter().enumerate() {
             for (i, info) in ocp.states.iter().enumerate() {
                 let mut b = info.bounds;
                 if k == 0 {
@@ -251,7 +253,7 @@ impl MultipleShooting {
                 let j = layout.x(k, i);
                 (var_lo[j], var_hi[j]) = (b.lo, b.hi);
                 var_scale[j] = positive(info.scale);
-                start[j] = clamp(info.guess_at(fractions[k]), &b);
+                start[j] = clamp(info.guess_at(frac), &b);
             }
             if layout.has_control(k) {
                 for (i, info) in ocp.controls.iter().enumerate() {
@@ -266,21 +268,23 @@ impl MultipleShooting {
                 }
             }
         }
-        for (i, info) in ocp.params.iter().enumerate() {
-            check_bounds(&format!("parameter {i}"), &info.bounds)?;
-            let j = layout.p(i);
-            (var_lo[j], var_hi[j]) = (info.bounds.lo, info.bounds.hi);
-            var_scale[j] = positive(info.scale);
-            start[j] =
-                clamp(info.guess.unwrap_or_else(|| representative(&info.bounds)), &info.bounds);
-        }
-        if let (Some(j), EndTime::Free { bounds, guess }) = (layout.tf(), ocp.horizon.end) {
-            // A horizon that ends before it starts has no meaning; the lower side keeps the
-            // interval lengths nonnegative.
-            let b = bounds.intersect(&Bounds { lo: t0, hi: f64::INFINITY });
-            (var_lo[j], var_hi[j]) = (b.lo, b.hi);
-            start[j] = clamp(guess, &b);
-            var_scale[j] = positive((start[j] - t0).abs());
+        for k in 0..layout.n_nodes() {
+            for (i, info) in ocp.params.iter().enumerate() {
+                check_bounds(&format!("parameter {i}"), &info.bounds)?;
+                let j = layout.p_at(k, i);
+                (var_lo[j], var_hi[j]) = (info.bounds.lo, info.bounds.hi);
+                var_scale[j] = positive(info.scale);
+                start[j] =
+                    clamp(info.guess.unwrap_or_else(|| representative(&info.bounds)), &info.bounds);
+            }
+            if let (Some(j), EndTime::Free { bounds, guess }) = (layout.tf_at(k), ocp.horizon.end) {
+                // A horizon that ends before it starts has no meaning; the lower side keeps
+                // the interval lengths nonnegative.
+                let b = bounds.intersect(&Bounds { lo: t0, hi: f64::INFINITY });
+                (var_lo[j], var_hi[j]) = (b.lo, b.hi);
+                start[j] = clamp(guess, &b);
+                var_scale[j] = positive((start[j] - t0).abs());
+            }
         }
         if let Some(j) = start.iter().position(|v| !v.is_finite()) {
             return Err(format!("the starting value of variable {j} is {}", start[j]));
@@ -308,12 +312,12 @@ impl MultipleShooting {
                 }
             }
             for i in 0..np {
-                v.push((cols.p(i), layout.p(i)));
+                v.push((cols.p(i), layout.p_at(k, i)));
             }
             interval_vars.push(v);
         }
         let mut q_vars: Vec<usize> = interval_vars.iter().flatten().map(|&(_, j)| j).collect();
-        q_vars.extend(layout.tf());
+        q_vars.extend((0..intervals).filter_map(|k| layout.tf_at(k)));
         q_vars.sort_unstable();
         q_vars.dedup();
 
@@ -387,10 +391,18 @@ impl MultipleShooting {
         }
     }
 
+    /// `tf - t0` as seen by node `k` (its own copy of a free end time).
+    fn span_at(&self, w: &[f64], k: usize) -> f64 {
+        match (self.layout.tf_at(k), self.end) {
+            (Some(j), _) => w[j] - self.t0,
+            (None, EndTime::Fixed(t)) => t - self.t0,
+            (None, EndTime::Free { guess, .. }) => guess - self.t0,
+        }
+    }
+
     /// Node times at `w`.
     pub fn times(&self, w: &[f64]) -> Vec<f64> {
-        let span = self.end_time(w) - self.t0;
-        self.mesh.iter().map(|s| self.t0 + s * span).collect()
+        (0..self.layout.n_nodes()).map(|k| self.t0 + self.mesh[k] * self.span_at(w, k)).collect()
     }
 
     /// Start from a previous solution instead of the guesses: each node takes the trajectory's
@@ -414,7 +426,7 @@ impl MultipleShooting {
         }
         let (a, b) = (warm.times[0], warm.times[nt - 1]);
         if !(a.is_finite() && b.is_finite() && b > a)
-            || warm.times.windows(2).any(|w| !(w[1] >= w[0]))
+            || warm.times.windows(2).any(|w| w[1] < w[0] || w[1].is_nan())
         {
             return bad("times must increase");
         }
@@ -437,11 +449,13 @@ impl MultipleShooting {
                 }
             }
         }
-        for i in 0..l.np {
-            w[l.p(i)] = warm.params[i];
-        }
-        if let Some(j) = l.tf() {
-            w[j] = warm.end_time;
+        for k in 0..l.n_nodes() {
+            for i in 0..l.np {
+                w[l.p_at(k, i)] = warm.params[i];
+            }
+            if let Some(j) = l.tf_at(k) {
+                w[j] = warm.end_time;
+            }
         }
         for (j, v) in w.iter_mut().enumerate() {
             if !v.is_finite() {
@@ -489,9 +503,9 @@ impl MultipleShooting {
         self.cache.valid = false;
         let l = &self.layout;
         let (nx, nu, np, nq) = (l.nx, l.nu, l.np, l.nq);
-        let span = self.end_time(w) - self.t0;
-        let p = &w[l.p(0)..l.p(0) + np];
         for k in 0..l.intervals {
+            let span = self.span_at(w, k);
+            let p = &w[l.p_at(k, 0)..l.p_at(k, 0) + np];
             let x0 = &w[l.x(k, 0)..l.x(k, 0) + nx];
             let us = l.u_at(k, 0);
             let u_start = &w[us..us + nu];
@@ -531,7 +545,7 @@ impl MultipleShooting {
                     for &(c, v) in &self.interval_vars[k] {
                         row[v] += s[(nx + j, c)];
                     }
-                    if let Some(t) = l.tf() {
+                    if let Some(t) = l.tf_at(k) {
                         let dm = self.mesh[k + 1] - self.mesh[k];
                         row[t] +=
                             s[(nx + j, cols.t_start())] * self.mesh[k] + s[(nx + j, cols.h())] * dm;
@@ -543,6 +557,16 @@ impl MultipleShooting {
         self.cache.with_sensitivities = sens;
         self.cache.valid = true;
         Ok(())
+    }
+
+    /// Variables of copy row `j` of interval `k`: `(node k's copy, node k+1's copy)`.
+    fn copy_pair(&self, k: usize, j: usize) -> (usize, usize) {
+        let l = &self.layout;
+        if j < l.np {
+            (l.p_at(k, j), l.p_at(k + 1, j))
+        } else {
+            (l.tf_at(k).unwrap_or(0), l.tf_at(k + 1).unwrap_or(0))
+        }
     }
 
     /// Fill an endpoint function's input `[t0, tf, x0, xN, p, q]` (integrals from the cache).
@@ -585,14 +609,15 @@ impl MultipleShooting {
     }
 
     /// Fill the path function's input at node `k`.
-    fn path_input(&mut self, w: &[f64], k: usize, span: f64) {
+    fn path_input(&mut self, w: &[f64], k: usize) {
+        let span = self.span_at(w, k);
         let l = &self.layout;
         let inp = &mut self.path.input;
         inp[0] = self.t0 + self.mesh[k] * span;
         inp[1..1 + l.nx].copy_from_slice(&w[l.x(k, 0)..l.x(k, 0) + l.nx]);
         let u = if l.nu > 0 { l.u_at(k, 0) } else { 0 };
         inp[1 + l.nx..1 + l.nx + l.nu].copy_from_slice(&w[u..u + l.nu]);
-        inp[1 + l.nx + l.nu..].copy_from_slice(&w[l.p(0)..l.p(0) + l.np]);
+        inp[1 + l.nx + l.nu..].copy_from_slice(&w[l.p_at(k, 0)..l.p_at(k, 0) + l.np]);
     }
 
     fn path_failure(&mut self, part: EvalPart, k: usize, row: usize, value: f64) -> EvalError {
@@ -725,13 +750,17 @@ impl Nlp for MultipleShooting {
             for i in 0..l.nx {
                 values[l.continuity_row(k, i)] = w[l.x(k + 1, i)] - out.x_end[i];
             }
+            for j in 0..l.n_copies() {
+                let (a, b) = self.copy_pair(k, j);
+                values[l.copy_row(k, j)] = w[b] - w[a];
+            }
         }
-        let span = self.end_time(w) - self.t0;
+
         for k in 0..l.n_nodes() {
             if l.ng == 0 {
                 break;
             }
-            self.path_input(w, k, span);
+            self.path_input(w, k);
             self.path.value();
             if let Some((r, v)) = self.path.first_bad(false) {
                 return Err(self.path_failure(EvalPart::Constraints, k, r, v));
@@ -772,9 +801,14 @@ impl Nlp for MultipleShooting {
                 for &(_, v) in &self.interval_vars[k] {
                     p.push(row, v);
                 }
-                if let Some(t) = l.tf() {
+                if let Some(t) = l.tf_at(k) {
                     p.push(row, t);
                 }
+            }
+            for j in 0..l.n_copies() {
+                let (a, b) = self.copy_pair(k, j);
+                p.push(l.copy_row(k, j), a);
+                p.push(l.copy_row(k, j), b);
             }
         }
         let rl = costate_model::RunningLayout { nx: l.nx, nu: l.nu, np: l.np };
@@ -783,7 +817,7 @@ impl Nlp for MultipleShooting {
                 let row = l.path_row(k, r);
                 if c == costate_model::RunningLayout::T {
                     // t_k = t0 + s_k (tf - t0) depends on a variable only when tf is free.
-                    if let Some(t) = l.tf() {
+                    if let Some(t) = l.tf_at(k) {
                         p.push(row, t);
                     }
                 } else if c < rl.u(0) {
@@ -791,7 +825,7 @@ impl Nlp for MultipleShooting {
                 } else if c < rl.p(0) {
                     p.push(row, l.u_at(k, c - rl.u(0)));
                 } else {
-                    p.push(row, l.p(c - rl.p(0)));
+                    p.push(row, l.p_at(k, c - rl.p(0)));
                 }
             }
         }
@@ -823,14 +857,19 @@ impl Nlp for MultipleShooting {
                     e += 1;
                 }
             }
+            for _ in 0..l.n_copies() {
+                values[e] = -1.0;
+                values[e + 1] = 1.0;
+                e += 2;
+            }
         }
-        let span = self.end_time(w) - self.t0;
+
         let pattern_len = self.path.fun.jacobian_pattern().len();
         for k in 0..l.n_nodes() {
             if pattern_len == 0 {
                 break;
             }
-            self.path_input(w, k, span);
+            self.path_input(w, k);
             self.path.value_and_jacobian();
             if let Some((r, v)) = self.path.first_bad(true) {
                 return Err(self.path_failure(EvalPart::Jacobian, k, r, v));
