@@ -4,7 +4,7 @@
 use std::sync::atomic::AtomicBool;
 use std::sync::Arc;
 
-use costate_check::{ControlShape, HessianMode, Integrator};
+use costate_check::settings::{ControlShape, HessianMode, Integrator};
 use costate_model::FunctionKind;
 use costate_solve::integrate::{ControlShape as Shape, Method};
 use costate_solve::transcribe::{solve_ocp, OcpSettings, OcpSolution, OcpStatus, Trajectory, ViolationSource};
