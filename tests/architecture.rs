@@ -21,14 +21,38 @@ fn allowed() -> BTreeMap<&'static str, (&'static [&'static str], &'static [&'sta
         (
             "costate-lsp",
             (
-                &["costate-syntax", "costate-check", "costate-ide", "costate-lower", "costate-model", "costate-solve", "costate-report"][..],
-                &["tower-lsp-server", "tokio", "serde", "serde_json", "tracing", "tracing-subscriber"][..],
+                &[
+                    "costate-syntax",
+                    "costate-check",
+                    "costate-ide",
+                    "costate-lower",
+                    "costate-model",
+                    "costate-solve",
+                    "costate-report",
+                ][..],
+                &[
+                    "tower-lsp-server",
+                    "tokio",
+                    "serde",
+                    "serde_json",
+                    "tracing",
+                    "tracing-subscriber",
+                ][..],
             ),
         ),
         (
             "costate-cli",
             (
-                &["costate-syntax", "costate-check", "costate-model", "costate-lower", "costate-solve", "costate-ide", "costate-lsp", "costate-report"][..],
+                &[
+                    "costate-syntax",
+                    "costate-check",
+                    "costate-model",
+                    "costate-lower",
+                    "costate-solve",
+                    "costate-ide",
+                    "costate-lsp",
+                    "costate-report",
+                ][..],
                 &["ariadne", "clap", "serde", "serde_json"][..],
             ),
         ),
@@ -43,7 +67,11 @@ fn crates_depend_only_on_what_their_layer_allows() {
         .current_dir(env!("CARGO_MANIFEST_DIR"))
         .output()
         .expect("cargo metadata runs");
-    assert!(out.status.success(), "cargo metadata failed: {}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "cargo metadata failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let meta: serde_json::Value = serde_json::from_slice(&out.stdout).expect("metadata is JSON");
     let rules = allowed();
     let mut problems = Vec::new();

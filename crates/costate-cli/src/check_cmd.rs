@@ -51,7 +51,8 @@ pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
     match format {
         Format::Text => {
             let checked = paths.len();
-            let plural = |n: usize, word: &str| format!("{n} {word}{}", if n == 1 { "" } else { "s" });
+            let plural =
+                |n: usize, word: &str| format!("{n} {word}{}", if n == 1 { "" } else { "s" });
             println!(
                 "{}, {} in {}",
                 plural(errors, "error"),
@@ -61,8 +62,10 @@ pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
         }
         Format::Json => println!(
             "{}",
-            serde_json::to_string_pretty(&json!({ "files": json_files, "errors": errors, "warnings": warnings }))
-                .expect("JSON values serialise")
+            serde_json::to_string_pretty(
+                &json!({ "files": json_files, "errors": errors, "warnings": warnings })
+            )
+            .expect("JSON values serialise")
         ),
     }
     if io_failed {

@@ -43,7 +43,11 @@ pub fn run(paths: &[PathBuf], check_only: bool) -> u8 {
         }
     }
     if check_only && unformatted == 0 && status == exit::OK {
-        println!("{} file{} already formatted", paths.len(), if paths.len() == 1 { "" } else { "s" });
+        println!(
+            "{} file{} already formatted",
+            paths.len(),
+            if paths.len() == 1 { "" } else { "s" }
+        );
     }
     status
 }

@@ -110,7 +110,10 @@ fn main() -> ExitCode {
         Command::Fmt { files, check } => fmt_cmd::run(&files, check),
         Command::Solve { file, intervals, out, format, quiet, warm } => {
             let overrides = run::Overrides { intervals: intervals.map(|n| n as usize) };
-            solve_cmd::run(&solve_cmd::SolveArgs { file, overrides, out, format, quiet, warm }, color)
+            solve_cmd::run(
+                &solve_cmd::SolveArgs { file, overrides, out, format, quiet, warm },
+                color,
+            )
         }
         Command::Test { paths } => {
             let paths = if paths.is_empty() { vec![PathBuf::from(".")] } else { paths };

@@ -20,7 +20,8 @@ pub fn terminal(path: &str, source: &str, diagnostic: &Diagnostic, color: bool) 
         .with_message(&diagnostic.message)
         .with_label(Label::new((path, primary)).with_message(&diagnostic.primary.message));
     for label in &diagnostic.labels {
-        report = report.with_label(Label::new((path, clamp(label.span))).with_message(&label.message));
+        report =
+            report.with_label(Label::new((path, clamp(label.span))).with_message(&label.message));
     }
     for note in &diagnostic.notes {
         report = report.with_note(note);
@@ -45,9 +46,7 @@ pub fn json(source: &str, index: &LineIndex, diagnostic: &Diagnostic) -> Value {
         let column = source.get(start..offset).map(|s| s.chars().count()).unwrap_or(0);
         json!({ "line": line + 1, "column": column + 1 })
     };
-    let span = |s: costate_syntax::Span| {
-        json!({ "start": s.start, "end": s.end, "from": position(s.start), "to": position(s.end) })
-    };
+    let span = |s: costate_syntax::Span| json!({ "start": s.start, "end": s.end, "from": position(s.start), "to": position(s.end) });
     json!({
         "code": diagnostic.code.id,
         "name": diagnostic.code.name,

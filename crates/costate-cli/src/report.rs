@@ -71,7 +71,12 @@ fn sense(map: &SourceMap) -> &'static str {
 }
 
 /// The human summary printed after the iteration log.
-pub fn summary(loaded: &Loaded, solution: &OcpSolution, intervals: usize, written: &[String]) -> String {
+pub fn summary(
+    loaded: &Loaded,
+    solution: &OcpSolution,
+    intervals: usize,
+    written: &[String],
+) -> String {
     let map = &loaded.lowered.source_map;
     let t = &solution.timing;
     let secs = |d: std::time::Duration| format!("{:.3} s", d.as_secs_f64());
@@ -208,8 +213,15 @@ pub fn solution_csv(loaded: &Loaded, solution: &OcpSolution) -> String {
     out.push('\n');
     for (k, t) in tr.times.iter().enumerate() {
         let mut row = vec![format!("{}", map.time.to_user(*t))];
-        row.extend(map.states.iter().enumerate().map(|(i, s)| format!("{}", s.to_user(tr.states[i][k]))));
-        row.extend(map.controls.iter().enumerate().map(|(i, c)| format!("{}", c.to_user(tr.controls[i][k]))));
+        row.extend(
+            map.states.iter().enumerate().map(|(i, s)| format!("{}", s.to_user(tr.states[i][k]))),
+        );
+        row.extend(
+            map.controls
+                .iter()
+                .enumerate()
+                .map(|(i, c)| format!("{}", c.to_user(tr.controls[i][k]))),
+        );
         out.push_str(&row.join(","));
         out.push('\n');
     }

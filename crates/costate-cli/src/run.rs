@@ -7,7 +7,9 @@ use std::sync::Arc;
 use costate_check::settings::{ControlShape, HessianMode, Integrator};
 use costate_model::FunctionKind;
 use costate_solve::integrate::{ControlShape as Shape, Method};
-use costate_solve::transcribe::{solve_ocp, OcpSettings, OcpSolution, OcpStatus, Trajectory, ViolationSource};
+use costate_solve::transcribe::{
+    solve_ocp, OcpSettings, OcpSolution, OcpStatus, Trajectory, ViolationSource,
+};
 use costate_solve::{log_header, log_line, HessianMode as SqpHessian, IterationRow};
 use costate_syntax::Diagnostic;
 
@@ -74,7 +76,11 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
     let node_time = |node: Option<usize>| {
         node.and_then(|k| solution.trajectory.times.get(k).map(|t| (k, *t))).map(|(k, t)| {
             let time = &map.time;
-            format!(" at node {k} ({} = {})", time.name, crate::report::with_unit(time.to_user(t), time.unit.as_deref()))
+            format!(
+                " at node {k} ({} = {})",
+                time.name,
+                crate::report::with_unit(time.to_user(t), time.unit.as_deref())
+            )
         })
     };
     let mut out = Vec::new();
@@ -101,7 +107,10 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
                         .unwrap_or((map.problem_span, describe_kind(kind).to_string())),
                     ViolationSource::Continuity(i) => {
                         let s = &map.states[i];
-                        (s.name_span, format!("the dynamics of `{}` (continuity between intervals)", s.name))
+                        (
+                            s.name_span,
+                            format!("the dynamics of `{}` (continuity between intervals)", s.name),
+                        )
                     }
                     ViolationSource::StateBound(i) => {
                         let s = &map.states[i];
@@ -115,7 +124,9 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
                         let s = &map.params[i];
                         (s.decl_span, format!("the bounds of parameter `{}`", s.name))
                     }
-                    ViolationSource::EndTime => (map.time.decl_span, format!("the end of `{}`", map.time.name)),
+                    ViolationSource::EndTime => {
+                        (map.time.decl_span, format!("the end of `{}`", map.time.name))
+                    }
                 };
                 out.push(
                     Diagnostic::new(

@@ -61,7 +61,9 @@ pub fn run(args: &SolveArgs, color: bool) -> u8 {
             let text = serde_json::to_string_pretty(&document).expect("JSON values serialise");
             files::write_atomic(&json_path, text.as_bytes())
         })
-        .and_then(|_| files::write_atomic(&csv_path, report::solution_csv(&loaded, &solution).as_bytes()));
+        .and_then(|_| {
+            files::write_atomic(&csv_path, report::solution_csv(&loaded, &solution).as_bytes())
+        });
     if let Err(e) = written {
         eprintln!("error: {e}");
         return exit::USAGE;
@@ -91,7 +93,8 @@ fn read_warm_start(path: &Path, loaded: &Loaded) -> Result<Trajectory, String> {
         .map_err(|e| format!("`{}` is not a solution file: {e}", path.display()))?;
     let bad = |what: &str| format!("`{}` is not a usable solution file: {what}", path.display());
     let map = &loaded.lowered.source_map;
-    let numbers = |v: &Value| -> Option<Vec<f64>> { v.as_array()?.iter().map(Value::as_f64).collect() };
+    let numbers =
+        |v: &Value| -> Option<Vec<f64>> { v.as_array()?.iter().map(Value::as_f64).collect() };
     let find = |list: &str, name: &str| -> Option<Value> {
         doc[list].as_array()?.iter().find(|e| e["name"] == name).cloned()
     };
@@ -102,21 +105,28 @@ fn read_warm_start(path: &Path, loaded: &Loaded) -> Result<Trajectory, String> {
         .collect();
     let mut states = Vec::new();
     for s in &map.states {
-        let entry = find("states", &s.name).ok_or_else(|| bad(&format!("no state `{}`", s.name)))?;
-        let values = numbers(&entry["values"]).ok_or_else(|| bad(&format!("state `{}` has no values", s.name)))?;
+        let entry =
+            find("states", &s.name).ok_or_else(|| bad(&format!("no state `{}`", s.name)))?;
+        let values = numbers(&entry["values"])
+            .ok_or_else(|| bad(&format!("state `{}` has no values", s.name)))?;
         states.push(values.into_iter().map(|v| s.to_si(v)).collect());
     }
     let mut controls = Vec::new();
     for c in &map.controls {
-        let entry = find("controls", &c.name).ok_or_else(|| bad(&format!("no control `{}`", c.name)))?;
-        let values = numbers(&entry["values"]).ok_or_else(|| bad(&format!("control `{}` has no values", c.name)))?;
+        let entry =
+            find("controls", &c.name).ok_or_else(|| bad(&format!("no control `{}`", c.name)))?;
+        let values = numbers(&entry["values"])
+            .ok_or_else(|| bad(&format!("control `{}` has no values", c.name)))?;
         controls.push(values.into_iter().map(|v| c.to_si(v)).collect());
     }
     let mut params = Vec::new();
     for p in &map.params {
-        let entry = find("params", &p.name).ok_or_else(|| bad(&format!("no parameter `{}`", p.name)))?;
-        params.push(p.to_si(entry["value"].as_f64().ok_or_else(|| bad("parameter without value"))?));
+        let entry =
+            find("params", &p.name).ok_or_else(|| bad(&format!("no parameter `{}`", p.name)))?;
+        params
+            .push(p.to_si(entry["value"].as_f64().ok_or_else(|| bad("parameter without value"))?));
     }
-    let end_time = doc["end_time"].as_f64().map(|t| map.time.to_si(t)).ok_or_else(|| bad("no `end_time`"))?;
+    let end_time =
+        doc["end_time"].as_f64().map(|t| map.time.to_si(t)).ok_or_else(|| bad("no `end_time`"))?;
     Ok(Trajectory { times, states, controls, params, end_time })
 }

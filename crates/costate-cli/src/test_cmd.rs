@@ -89,7 +89,11 @@ pub fn run(paths: &[PathBuf], color: bool) -> u8 {
     }
 }
 
-fn evaluate(loaded: &Loaded, e: &costate_lower::LoweredExpectation, solution: &costate_solve::transcribe::OcpSolution) -> Option<f64> {
+fn evaluate(
+    loaded: &Loaded,
+    e: &costate_lower::LoweredExpectation,
+    solution: &costate_solve::transcribe::OcpSolution,
+) -> Option<f64> {
     match &e.target {
         Target::Cost => Some(report::user_cost(loaded, solution)),
         Target::Expr(function) => {
@@ -138,12 +142,14 @@ fn print_table(rows: &[[String; 6]]) {
 
 /// `*.costate` files under a folder (recursively), or the file itself.
 fn collect(path: &Path, out: &mut Vec<PathBuf>) -> Result<(), String> {
-    let meta = std::fs::metadata(path).map_err(|_| format!("cannot read `{}`: no such file or folder", path.display()))?;
+    let meta = std::fs::metadata(path)
+        .map_err(|_| format!("cannot read `{}`: no such file or folder", path.display()))?;
     if meta.is_file() {
         out.push(path.to_path_buf());
         return Ok(());
     }
-    let entries = std::fs::read_dir(path).map_err(|e| format!("cannot read folder `{}`: {e}", path.display()))?;
+    let entries = std::fs::read_dir(path)
+        .map_err(|e| format!("cannot read folder `{}`: {e}", path.display()))?;
     for entry in entries {
         let entry = entry.map_err(|e| format!("cannot read folder `{}`: {e}", path.display()))?;
         let p = entry.path();

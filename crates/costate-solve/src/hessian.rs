@@ -153,7 +153,13 @@ pub struct Convexified {
 /// `shift` from the sequence `0, start, start * growth, ...` that makes it positive definite,
 /// judged by the signs of `D` in a sparse `LDL'` factorisation without pivot regularisation.
 /// The shift is added to `upper` in place (diagonal entries are appended).
-pub fn convexify(upper: &mut Triplets, start: f64, growth: f64, max_shift: f64, try_zero: bool) -> Convexified {
+pub fn convexify(
+    upper: &mut Triplets,
+    start: f64,
+    growth: f64,
+    max_shift: f64,
+    try_zero: bool,
+) -> Convexified {
     let n = upper.nrows;
     let mut rows = upper.rows.clone();
     let mut cols = upper.cols.clone();
@@ -171,7 +177,8 @@ pub fn convexify(upper: &mut Triplets, start: f64, growth: f64, max_shift: f64, 
             *v = shift;
         }
         let m = CscMatrix::new_from_triplets(n, n, rows.clone(), cols.clone(), vals.clone());
-        let settings = QDLDLSettings::<f64> { regularize_enable: false, ..QDLDLSettings::default() };
+        let settings =
+            QDLDLSettings::<f64> { regularize_enable: false, ..QDLDLSettings::default() };
         let pd = match QDLDLFactorisation::new(&m, Some(settings)) {
             Ok(f) => f.D.iter().all(|&d| d.is_finite() && d > 1e-12 * scale),
             Err(_) => false,

@@ -20,12 +20,15 @@ pub mod sqp;
 pub mod transcribe;
 
 pub use nlp::{EvalError, EvalFailure, EvalPart, Nlp, Pattern};
-pub use qp::{ClarabelQp, ClarabelQpSettings, QpError, QpProblem, QpSolution, QpSolver, QpStatus, Triplets};
+pub use qp::{
+    ClarabelQp, ClarabelQpSettings, QpError, QpProblem, QpSolution, QpSolver, QpStatus, Triplets,
+};
 pub use settings::{HessianMode, SettingsError, SqpSettings};
 pub use sqp::{
-    log_header, log_line, solve_nlp, IterationRow, Residuals, RowObserver, SolveError, Sqp, SqpResult, SqpState,
-    SqpStatus, StallReason, StepKind, Timing, ViolatedRow,
+    log_header, log_line, solve_nlp, IterationRow, Residuals, RowObserver, SolveError, Sqp,
+    SqpResult, SqpState, SqpStatus, StallReason, StepKind, Timing, ViolatedRow,
 };
 pub use transcribe::{
-    solve_ocp, Finding, MultipleShooting, OcpSettings, OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource,
+    solve_ocp, Finding, MultipleShooting, OcpSettings, OcpSolution, OcpStatus, Trajectory,
+    Violation, ViolationSource,
 };

@@ -61,7 +61,11 @@ impl Pattern {
         if self.rows.len() != self.cols.len() {
             return Some((usize::MAX, usize::MAX));
         }
-        self.rows.iter().zip(&self.cols).map(|(&r, &c)| (r, c)).find(|&(r, c)| r >= nrows || c >= ncols)
+        self.rows
+            .iter()
+            .zip(&self.cols)
+            .map(|(&r, &c)| (r, c))
+            .find(|&(r, c)| r >= nrows || c >= ncols)
     }
 }
 
@@ -130,7 +134,13 @@ impl EvalError {
     }
 
     pub fn failed(part: EvalPart) -> Self {
-        EvalError { part, index: None, failure: EvalFailure::Failed, tag: Self::UNTAGGED, stage: None }
+        EvalError {
+            part,
+            index: None,
+            failure: EvalFailure::Failed,
+            tag: Self::UNTAGGED,
+            stage: None,
+        }
     }
 
     pub fn unavailable(part: EvalPart) -> Self {

@@ -133,7 +133,9 @@ impl QpProblem {
         let bounds_ok = |lo: &[f64], hi: &[f64]| {
             lo.iter().zip(hi).all(|(l, u)| !l.is_nan() && !u.is_nan() && l <= u)
         };
-        if !bounds_ok(&self.row_lower, &self.row_upper) || !bounds_ok(&self.var_lower, &self.var_upper) {
+        if !bounds_ok(&self.row_lower, &self.row_upper)
+            || !bounds_ok(&self.var_lower, &self.var_upper)
+        {
             return Err(QpError("a lower bound is above its upper bound or NaN".into()));
         }
         Ok(())
@@ -263,10 +265,22 @@ impl QpSolver for ClarabelQp {
         let mut eq: Vec<(Origin, f64)> = Vec::new();
         let mut ineq: Vec<(Origin, f64)> = Vec::new();
         for i in 0..m {
-            classify(qp.row_lower[i], qp.row_upper[i], |sign| Origin::Row { index: i, sign }, &mut eq, &mut ineq);
+            classify(
+                qp.row_lower[i],
+                qp.row_upper[i],
+                |sign| Origin::Row { index: i, sign },
+                &mut eq,
+                &mut ineq,
+            );
         }
         for j in 0..n {
-            classify(qp.var_lower[j], qp.var_upper[j], |sign| Origin::Var { index: j, sign }, &mut eq, &mut ineq);
+            classify(
+                qp.var_lower[j],
+                qp.var_upper[j],
+                |sign| Origin::Var { index: j, sign },
+                &mut eq,
+                &mut ineq,
+            );
         }
 
         // For each original row of `A`, the conic rows it feeds (at most two).
@@ -333,8 +347,12 @@ impl QpSolver for ClarabelQp {
         let status = match sol.status {
             SolverStatus::Solved => QpStatus::Solved,
             SolverStatus::AlmostSolved => QpStatus::SolvedReducedAccuracy,
-            SolverStatus::PrimalInfeasible | SolverStatus::AlmostPrimalInfeasible => QpStatus::Infeasible,
-            SolverStatus::DualInfeasible | SolverStatus::AlmostDualInfeasible => QpStatus::Unbounded,
+            SolverStatus::PrimalInfeasible | SolverStatus::AlmostPrimalInfeasible => {
+                QpStatus::Infeasible
+            }
+            SolverStatus::DualInfeasible | SolverStatus::AlmostDualInfeasible => {
+                QpStatus::Unbounded
+            }
             SolverStatus::MaxIterations => QpStatus::IterationLimit,
             SolverStatus::MaxTime => QpStatus::TimeLimit,
             SolverStatus::Unsolved
@@ -356,7 +374,13 @@ impl QpSolver for ClarabelQp {
                 }
             }
         }
-        Ok(QpSolution { status, step, row_multipliers, bound_multipliers, iterations: sol.iterations })
+        Ok(QpSolution {
+            status,
+            step,
+            row_multipliers,
+            bound_multipliers,
+            iterations: sol.iterations,
+        })
     }
 }
 

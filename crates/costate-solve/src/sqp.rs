@@ -33,12 +33,15 @@ use std::time::{Duration, Instant};
 
 use argmin::core::observers::{Observe, ObserverMode};
 use argmin::core::{
-    Error as ArgminError, Executor, Problem, Solver, State, TerminationReason, TerminationStatus, KV,
+    Error as ArgminError, Executor, Problem, Solver, State, TerminationReason, TerminationStatus,
+    KV,
 };
 
 use crate::hessian::{convexify, BfgsUpdate, BlockBfgs};
 use crate::nlp::{finite_bound, EvalError, EvalPart, Nlp, Pattern};
-use crate::qp::{ClarabelQp, ClarabelQpSettings, QpProblem, QpSolution, QpSolver, QpStatus, Triplets};
+use crate::qp::{
+    ClarabelQp, ClarabelQpSettings, QpProblem, QpSolution, QpSolver, QpStatus, Triplets,
+};
 use crate::settings::{HessianMode, SettingsError, SqpSettings};
 
 /// A constraint row left violated, with its violation in the problem's units.
@@ -68,15 +71,21 @@ pub enum SqpStatus {
     SolvedReducedAccuracy,
     /// The constraint violation is (locally) as small as it gets and still above the
     /// tolerance. `rows` are the most violated rows, largest first (at most 10).
-    LocallyInfeasible { rows: Vec<ViolatedRow> },
+    LocallyInfeasible {
+        rows: Vec<ViolatedRow>,
+    },
     IterationLimit,
     TimeLimit,
     /// The problem could not be evaluated at the start, or at any trial point of a step.
-    EvaluationFailed { error: EvalError },
+    EvaluationFailed {
+        error: EvalError,
+    },
     /// The cancel flag was raised.
     Interrupted,
     /// No further progress possible and even the loosened tolerances are not met.
-    Stalled { reason: StallReason },
+    Stalled {
+        reason: StallReason,
+    },
 }
 
 impl SqpStatus {
@@ -351,12 +360,22 @@ fn setup<N: Nlp + ?Sized>(nlp: &N, settings: &SqpSettings) -> Result<Setup, Solv
     let mut cu = vec![0.0; m];
     nlp.constraint_bounds(&mut cl, &mut cu);
     for j in 0..n {
-        if wl[j].is_nan() || wu[j].is_nan() || wl[j] > wu[j] || wl[j] == f64::INFINITY || wu[j] == f64::NEG_INFINITY {
+        if wl[j].is_nan()
+            || wu[j].is_nan()
+            || wl[j] > wu[j]
+            || wl[j] == f64::INFINITY
+            || wu[j] == f64::NEG_INFINITY
+        {
             return bad(format!("variable {j} has bounds [{}, {}]", wl[j], wu[j]));
         }
     }
     for i in 0..m {
-        if cl[i].is_nan() || cu[i].is_nan() || cl[i] > cu[i] || cl[i] == f64::INFINITY || cu[i] == f64::NEG_INFINITY {
+        if cl[i].is_nan()
+            || cu[i].is_nan()
+            || cl[i] > cu[i]
+            || cl[i] == f64::INFINITY
+            || cu[i] == f64::NEG_INFINITY
+        {
             return bad(format!("constraint row {i} has bounds [{}, {}]", cl[i], cu[i]));
         }
     }
@@ -377,7 +396,8 @@ fn setup<N: Nlp + ?Sized>(nlp: &N, settings: &SqpSettings) -> Result<Setup, Solv
     if !(obj.is_finite() && obj > 0.0) {
         return bad(format!("objective scale is {obj}"));
     }
-    let scale_bound = |v: f64, s: f64, sign: f64| if finite_bound(v) { v / s } else { sign * f64::INFINITY };
+    let scale_bound =
+        |v: f64, s: f64, sign: f64| if finite_bound(v) { v / s } else { sign * f64::INFINITY };
     let yl = (0..n).map(|j| scale_bound(wl[j], var[j], -1.0)).collect();
     let yu = (0..n).map(|j| scale_bound(wu[j], var[j], 1.0)).collect();
     let inequality = (0..m).map(|i| cl[i] != cu[i]).collect();
@@ -409,7 +429,10 @@ fn setup<N: Nlp + ?Sized>(nlp: &N, settings: &SqpSettings) -> Result<Setup, Solv
             return bad(format!("hessian pattern entry ({r}, {c}) outside {n}x{n}"));
         }
         if let Some(k) = (0..p.len()).find(|&k| p.rows[k] < p.cols[k]) {
-            return bad(format!("hessian pattern entry ({}, {}) above the diagonal", p.rows[k], p.cols[k]));
+            return bad(format!(
+                "hessian pattern entry ({}, {}) above the diagonal",
+                p.rows[k], p.cols[k]
+            ));
         }
         let s = p.rows.iter().zip(&p.cols).map(|(&r, &c)| var[r] * var[c]).collect();
         Some((p, s))
@@ -494,7 +517,14 @@ impl Sqp {
             max_iterations: settings.qp_max_iterations,
             ..ClarabelQpSettings::default()
         });
-        Ok(Sqp { settings, cancel: None, qp: Box::new(qp), work: None, eval_time: Duration::ZERO, qp_time: Duration::ZERO })
+        Ok(Sqp {
+            settings,
+            cancel: None,
+            qp: Box::new(qp),
+            work: None,
+            eval_time: Duration::ZERO,
+            qp_time: Duration::ZERO,
+        })
     }
 
     /// Stop at the next iteration boundary once `flag` is set.
@@ -700,9 +730,17 @@ fn residuals(s: &Setup, p: &Point, lambda: &[f64], nu: &[f64]) -> Residuals {
     let comp = |mult: f64, v: f64, lo: f64, hi: f64| {
         // A multiplier pushing against an absent side is itself the error.
         if mult > 0.0 {
-            if hi.is_finite() { mult * (hi - v).max(0.0) } else { mult }
+            if hi.is_finite() {
+                mult * (hi - v).max(0.0)
+            } else {
+                mult
+            }
         } else if mult < 0.0 {
-            if lo.is_finite() { -mult * (v - lo).max(0.0) } else { -mult }
+            if lo.is_finite() {
+                -mult * (v - lo).max(0.0)
+            } else {
+                -mult
+            }
         } else {
             0.0
         }
@@ -729,13 +767,13 @@ fn meets(r: &Residuals, st: &SqpSettings, factor: f64) -> bool {
 
 /// The most violated rows (largest scaled violation first), in the problem's units.
 fn violated_rows(s: &Setup, c: &[f64], tol: f64) -> Vec<ViolatedRow> {
-    let mut rows: Vec<(usize, f64)> = (0..s.m)
-        .map(|i| (i, outside(c[i], s.cl[i], s.cu[i])))
-        .filter(|&(_, v)| v > tol)
-        .collect();
+    let mut rows: Vec<(usize, f64)> =
+        (0..s.m).map(|i| (i, outside(c[i], s.cl[i], s.cu[i]))).filter(|&(_, v)| v > tol).collect();
     rows.sort_by(|a, b| b.1.total_cmp(&a.1).then(a.0.cmp(&b.0)));
     rows.truncate(10);
-    rows.into_iter().map(|(row, v)| ViolatedRow { row, violation: v * s.scaling.con[row] }).collect()
+    rows.into_iter()
+        .map(|(row, v)| ViolatedRow { row, violation: v * s.scaling.con[row] })
+        .collect()
 }
 
 /// Move `y` inside the bounds, and onto a bound it is within rounding distance of (an
@@ -896,7 +934,9 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
         }
     }
     let held: Vec<usize> = (0..s.n)
-        .filter(|&j| s.yl[j] == s.yu[j] || (wk.nu[j] != 0.0 && (p.y[j] == s.yl[j] || p.y[j] == s.yu[j])))
+        .filter(|&j| {
+            s.yl[j] == s.yu[j] || (wk.nu[j] != 0.0 && (p.y[j] == s.yl[j] || p.y[j] == s.yu[j]))
+        })
         .collect();
     // J_A' J_A in the upper triangle: every pair of entries within one augmented row.
     let mut by_row: Vec<Vec<usize>> = vec![Vec::new(); s.m];
@@ -942,7 +982,8 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
             if convexify(&mut t, 0.0, 2.0, 0.0, true).ok {
                 wk.last_weight = w;
                 wk.last_shift = 0.0;
-                let augmentation = (w > 0.0).then(|| Augmentation { weight: w, rows: rows.clone() });
+                let augmentation =
+                    (w > 0.0).then(|| Augmentation { weight: w, rows: rows.clone() });
                 return ConvexModel { hessian: t, shift: 0.0, augmentation };
             }
         }
@@ -953,7 +994,8 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
     // is not convex on the null space anyway.
     let weight = 0.0;
     let mut t = with_weight(weight);
-    let start = (wk.last_shift / st.hessian_shift_growth).max(st.hessian_shift_start).max(wk.shift_floor);
+    let start =
+        (wk.last_shift / st.hessian_shift_growth).max(st.hessian_shift_start).max(wk.shift_floor);
     let cv = convexify(&mut t, start, st.hessian_shift_growth, st.hessian_shift_max, false);
     wk.last_shift = cv.shift;
     wk.last_weight = weight;
@@ -963,15 +1005,27 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
 
 /// Outcome of the search along one QP step.
 enum Search {
-    Accepted { y: Vec<f64>, f: f64, c: Vec<f64>, alpha: f64, soc: bool, backtracks: u32 },
+    Accepted {
+        y: Vec<f64>,
+        f: f64,
+        c: Vec<f64>,
+        alpha: f64,
+        soc: bool,
+        backtracks: u32,
+    },
     /// No acceptable point; `error` when no trial point could be evaluated at all.
-    Failed { error: Option<EvalError>, backtracks: u32 },
+    Failed {
+        error: Option<EvalError>,
+        backtracks: u32,
+    },
 }
 
 impl Sqp {
     fn finish(&self, mut state: SqpState, status: SqpStatus) -> SqpState {
         let reason = match status {
-            SqpStatus::Solved | SqpStatus::SolvedReducedAccuracy => TerminationReason::SolverConverged,
+            SqpStatus::Solved | SqpStatus::SolvedReducedAccuracy => {
+                TerminationReason::SolverConverged
+            }
             _ => TerminationReason::SolverExit(status.label().to_string()),
         };
         state.status = Some(status);
@@ -985,7 +1039,8 @@ impl Sqp {
         let sc = &s.scaling;
         state.x = (0..s.n).map(|j| wk.point.y[j] * sc.var[j]).collect();
         state.constraints = (0..s.m).map(|i| wk.point.c[i] * sc.con[i]).collect();
-        state.constraint_multipliers = (0..s.m).map(|i| wk.lambda[i] * sc.obj / sc.con[i]).collect();
+        state.constraint_multipliers =
+            (0..s.m).map(|i| wk.lambda[i] * sc.obj / sc.con[i]).collect();
         state.bound_multipliers = (0..s.n).map(|j| wk.nu[j] * sc.obj / sc.var[j]).collect();
         state.objective = wk.point.f * sc.obj;
         state.penalty = wk.penalty;
@@ -1003,7 +1058,8 @@ impl Sqp {
         let feas = elastic(&qp, 1.0);
         let n = wk.setup.n;
         let (sol, _) = self.solve_qp(&feas)?;
-        Ok(sol.status.has_solution() && inf_norm(&sol.step[..n]) <= self.settings.infeasibility_tolerance)
+        Ok(sol.status.has_solution()
+            && inf_norm(&sol.step[..n]) <= self.settings.infeasibility_tolerance)
     }
 
     fn search<N: Nlp>(
@@ -1016,14 +1072,17 @@ impl Sqp {
         qp_time: &mut Duration,
     ) -> Result<Search, ArgminError> {
         let st = self.settings.clone();
-        let Some(wk) = self.work.as_mut() else { return Err(ArgminError::msg("solver not initialised")) };
+        let Some(wk) = self.work.as_mut() else {
+            return Err(ArgminError::msg("solver not initialised"));
+        };
         let phi0 = wk.merit(wk.point.f, &wk.point.c);
         let mut alpha = 1.0;
         let mut backtracks = 0;
         let mut any_value = false;
         let mut last_error = None;
         loop {
-            let wk = self.work.as_mut().ok_or_else(|| ArgminError::msg("solver not initialised"))?;
+            let wk =
+                self.work.as_mut().ok_or_else(|| ArgminError::msg("solver not initialised"))?;
             let mut y: Vec<f64> = wk.point.y.iter().zip(d).map(|(y, d)| y + alpha * d).collect();
             clamp_snap(&wk.setup, &mut y);
             match eval_values(problem, &wk.setup, &y, &mut wk.w_buf, &mut self.eval_time)? {
@@ -1045,14 +1104,34 @@ impl Sqp {
                         }
                         let (sol, dt) = self.solve_qp(&soc)?;
                         *qp_time += dt;
-                        let wk = self.work.as_mut().ok_or_else(|| ArgminError::msg("solver not initialised"))?;
+                        let wk = self
+                            .work
+                            .as_mut()
+                            .ok_or_else(|| ArgminError::msg("solver not initialised"))?;
                         if sol.status.has_solution() {
-                            let mut y2: Vec<f64> = wk.point.y.iter().zip(&sol.step).map(|(y, d)| y + d).collect();
+                            let mut y2: Vec<f64> =
+                                wk.point.y.iter().zip(&sol.step).map(|(y, d)| y + d).collect();
                             clamp_snap(&wk.setup, &mut y2);
-                            if let Ok((f2, c2)) = eval_values(problem, &wk.setup, &y2, &mut wk.w_buf, &mut self.eval_time)? {
-                                let wk = self.work.as_ref().ok_or_else(|| ArgminError::msg("solver not initialised"))?;
+                            if let Ok((f2, c2)) = eval_values(
+                                problem,
+                                &wk.setup,
+                                &y2,
+                                &mut wk.w_buf,
+                                &mut self.eval_time,
+                            )? {
+                                let wk = self
+                                    .work
+                                    .as_ref()
+                                    .ok_or_else(|| ArgminError::msg("solver not initialised"))?;
                                 if wk.merit(f2, &c2) <= phi0 + st.sufficient_decrease * slope {
-                                    return Ok(Search::Accepted { y: y2, f: f2, c: c2, alpha: 1.0, soc: true, backtracks });
+                                    return Ok(Search::Accepted {
+                                        y: y2,
+                                        f: f2,
+                                        c: c2,
+                                        alpha: 1.0,
+                                        soc: true,
+                                        backtracks,
+                                    });
                                 }
                             }
                         }
@@ -1063,7 +1142,10 @@ impl Sqp {
             backtracks += 1;
             alpha *= st.backtrack_factor;
             if alpha < st.min_step {
-                return Ok(Search::Failed { error: if any_value { None } else { last_error }, backtracks });
+                return Ok(Search::Failed {
+                    error: if any_value { None } else { last_error },
+                    backtracks,
+                });
             }
         }
     }
@@ -1074,7 +1156,11 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         "costate-sqp"
     }
 
-    fn init(&mut self, problem: &mut Problem<N>, mut state: SqpState) -> Result<(SqpState, Option<KV>), ArgminError> {
+    fn init(
+        &mut self,
+        problem: &mut Problem<N>,
+        mut state: SqpState,
+    ) -> Result<(SqpState, Option<KV>), ArgminError> {
         let nlp = nlp_mut(problem)?;
         let mut s = setup(&*nlp, &self.settings).map_err(|e| ArgminError::msg(e.to_string()))?;
         state.max_iters = self.settings.max_iterations;
@@ -1096,7 +1182,14 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         let mut grad_buf = vec![0.0; s.grad_pattern.len()];
         let values = eval_values(problem, &s, &y, &mut w_buf, &mut self.eval_time)?;
         let derivs = match &values {
-            Ok(_) => Some(eval_derivatives(problem, &s, &y, &mut w_buf, &mut grad_buf, &mut self.eval_time)?),
+            Ok(_) => Some(eval_derivatives(
+                problem,
+                &s,
+                &y,
+                &mut w_buf,
+                &mut grad_buf,
+                &mut self.eval_time,
+            )?),
             Err(_) => None,
         };
         let ((f, c), (g, jac)) = match (values, derivs) {
@@ -1167,7 +1260,11 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         Ok((state, None))
     }
 
-    fn next_iter(&mut self, problem: &mut Problem<N>, mut state: SqpState) -> Result<(SqpState, Option<KV>), ArgminError> {
+    fn next_iter(
+        &mut self,
+        problem: &mut Problem<N>,
+        mut state: SqpState,
+    ) -> Result<(SqpState, Option<KV>), ArgminError> {
         let st = self.settings.clone();
         let uninit = || ArgminError::msg("solver not initialised");
         let mut qp_time = Duration::ZERO;
@@ -1183,7 +1280,14 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             bfgs.push_upper(&mut h);
             h
         } else {
-            let hv = eval_hessian(problem, &wk.setup, &wk.point.y, &wk.lambda, &mut wk.w_buf, &mut self.eval_time)?;
+            let hv = eval_hessian(
+                problem,
+                &wk.setup,
+                &wk.point.y,
+                &wk.lambda,
+                &mut wk.w_buf,
+                &mut self.eval_time,
+            )?;
             let h = match hv {
                 Ok(h) => h,
                 Err(error) => {
@@ -1223,10 +1327,8 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 }
             }
             let wk = self.work.as_ref().ok_or_else(uninit)?;
-            let weight = wk
-                .penalty
-                .max(10.0 * inf_norm(&wk.lambda))
-                .min(st.elastic_multiplier_limit);
+            let weight =
+                wk.penalty.max(10.0 * inf_norm(&wk.lambda)).min(st.elastic_multiplier_limit);
             // The merit function must weigh the violation like the elastic QP did.
             self.work.as_mut().ok_or_else(uninit)?.penalty = weight;
             let (esol, dt) = self.solve_qp(&elastic(&qp, weight))?;
@@ -1295,7 +1397,8 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             let slope = (gd - wk.penalty * reduction).min(0.0);
             // 4. Line search.
             let d = sol.step.clone();
-            let search = self.search(problem, &qp, &d, slope, kind == StepKind::Regular, &mut qp_time)?;
+            let search =
+                self.search(problem, &qp, &d, slope, kind == StepKind::Regular, &mut qp_time)?;
             Some(search)
         } else {
             None
@@ -1305,12 +1408,22 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         match outcome {
             Some(Search::Accepted { y, f, c, alpha, soc, backtracks }) => {
                 let wk = self.work.as_mut().ok_or_else(uninit)?;
-                let derivs = eval_derivatives(problem, &wk.setup, &y, &mut wk.w_buf, &mut wk.grad_buf, &mut self.eval_time)?;
+                let derivs = eval_derivatives(
+                    problem,
+                    &wk.setup,
+                    &y,
+                    &mut wk.w_buf,
+                    &mut wk.grad_buf,
+                    &mut self.eval_time,
+                )?;
                 let (g, jac) = match derivs {
                     Ok(v) => v,
                     Err(error) => {
                         self.publish(&mut state);
-                        return Ok((self.finish(state, SqpStatus::EvaluationFailed { error }), None));
+                        return Ok((
+                            self.finish(state, SqpStatus::EvaluationFailed { error }),
+                            None,
+                        ));
                     }
                 };
                 let wk = self.work.as_mut().ok_or_else(uninit)?;
@@ -1345,16 +1458,24 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 if let Some(Search::Failed { backtracks, .. }) = other {
                     row.backtracks = backtracks;
                 }
-                let reason = if qp_status.has_solution() { StallReason::LineSearch } else { StallReason::Qp(qp_status) };
+                let reason = if qp_status.has_solution() {
+                    StallReason::LineSearch
+                } else {
+                    StallReason::Qp(qp_status)
+                };
                 let wk = self.work.as_mut().ok_or_else(uninit)?;
                 wk.failures += 1;
                 let r = residuals(&wk.setup, &wk.point, &wk.lambda, &wk.nu);
                 if wk.failures >= 3 {
                     let status = if meets(&r, &st, st.reduced_accuracy_factor) {
                         SqpStatus::SolvedReducedAccuracy
-                    } else if r.violation > st.feasibility_tolerance && self.violation_is_stationary()? {
+                    } else if r.violation > st.feasibility_tolerance
+                        && self.violation_is_stationary()?
+                    {
                         let wk = self.work.as_ref().ok_or_else(uninit)?;
-                        SqpStatus::LocallyInfeasible { rows: violated_rows(&wk.setup, &wk.point.c, st.feasibility_tolerance) }
+                        SqpStatus::LocallyInfeasible {
+                            rows: violated_rows(&wk.setup, &wk.point.c, st.feasibility_tolerance),
+                        }
                     } else {
                         SqpStatus::Stalled { reason }
                     };
@@ -1454,7 +1575,9 @@ pub fn solve_nlp<N: Nlp>(
     };
     // Defence in depth: "solved" must mean the tolerances hold at the returned point.
     let status = match status {
-        SqpStatus::Solved if !meets(&state.residuals, settings, 1.0) => SqpStatus::Stalled { reason: StallReason::LineSearch },
+        SqpStatus::Solved if !meets(&state.residuals, settings, 1.0) => {
+            SqpStatus::Stalled { reason: StallReason::LineSearch }
+        }
         other => other,
     };
     let total = started.elapsed();
@@ -1484,7 +1607,15 @@ pub fn solve_nlp<N: Nlp>(
 pub fn log_header() -> String {
     format!(
         "{:>5}  {:>15}  {:>9}  {:>12}  {:>9}  {:>9}  {:>8}  {:>9}  {}",
-        "iter", "objective", "violation", "stationarity", "step", "penalty", "qp_ms", "shift", "notes"
+        "iter",
+        "objective",
+        "violation",
+        "stationarity",
+        "step",
+        "penalty",
+        "qp_ms",
+        "shift",
+        "notes"
     )
 }
 

@@ -9,8 +9,8 @@ use std::sync::atomic::AtomicBool;
 use std::sync::{Arc, Mutex};
 
 use costate_solve::{
-    log_header, log_line, solve_nlp, EvalError, EvalFailure, EvalPart, HessianMode, IterationRow, Nlp, Pattern,
-    SolveError, SqpResult, SqpSettings, SqpStatus, StepKind,
+    log_header, log_line, solve_nlp, EvalError, EvalFailure, EvalPart, HessianMode, IterationRow,
+    Nlp, Pattern, SolveError, SqpResult, SqpSettings, SqpStatus, StepKind,
 };
 use support::{TestNlp, INF};
 
@@ -37,7 +37,13 @@ fn assert_close(a: &[f64], b: &[f64], tol: f64, what: &str) {
 }
 
 fn assert_solved(r: &SqpResult, mode: HessianMode) {
-    assert_eq!(r.status, SqpStatus::Solved, "{mode:?}: {:?} after {} iterations", r.residuals, r.iterations);
+    assert_eq!(
+        r.status,
+        SqpStatus::Solved,
+        "{mode:?}: {:?} after {} iterations",
+        r.residuals,
+        r.iterations
+    );
     assert!(r.residuals.violation <= 1e-8 && r.residuals.stationarity <= 1e-8);
 }
 
@@ -159,7 +165,12 @@ fn saddle_product() -> TestNlp {
             g[1] = -x[0];
         }),
     )
-    .constraints(vec![2.0], vec![2.0], Box::new(|x, c| c[0] = x[0] + x[1]), Box::new(|_, j| j.fill(1.0)))
+    .constraints(
+        vec![2.0],
+        vec![2.0],
+        Box::new(|x, c| c[0] = x[0] + x[1]),
+        Box::new(|_, j| j.fill(1.0)),
+    )
     .hessian(Box::new(|_, s, _, h| {
         h[1] = -s;
         h[2] = -s;
@@ -175,7 +186,8 @@ fn nonconvex_equality_with_indefinite_hessian() {
         assert_close(&r.x, &[1.0, 1.0], 1e-6, "x");
         assert!((r.constraint_multipliers[0] - 1.0).abs() < 1e-6);
         if mode == HessianMode::Exact {
-            let convexified = r.history.iter().any(|row| row.hessian_shift > 0.0 || row.augmentation > 0.0);
+            let convexified =
+                r.history.iter().any(|row| row.hessian_shift > 0.0 || row.augmentation > 0.0);
             assert!(convexified, "indefinite Hessian used as is");
         }
     }
@@ -261,10 +273,15 @@ fn rosenbrock_capped() -> TestNlp {
             g[1] = 200.0 * (x[1] - x[0] * x[0]);
         }),
     )
-    .constraints(vec![-INF], vec![0.5], Box::new(|x, c| c[0] = x[0]), Box::new(|_, j| {
-        j[0] = 1.0;
-        j[1] = 0.0;
-    }))
+    .constraints(
+        vec![-INF],
+        vec![0.5],
+        Box::new(|x, c| c[0] = x[0]),
+        Box::new(|_, j| {
+            j[0] = 1.0;
+            j[1] = 0.0;
+        }),
+    )
     .hessian(Box::new(|x, s, _, h| {
         h[0] = s * (1200.0 * x[0] * x[0] - 400.0 * x[1] + 2.0);
         h[1] = s * -400.0 * x[0];
@@ -374,10 +391,15 @@ fn redundant_equalities_still_solve() {
 /// min -x1 - x2 s.t. x1 = x2: unbounded below along the constraint.
 fn unbounded() -> TestNlp {
     TestNlp::new(vec![0.0, 0.0], Box::new(|x| -x[0] - x[1]), Box::new(|_, g| g.fill(-1.0)))
-        .constraints(vec![0.0], vec![0.0], Box::new(|x, c| c[0] = x[0] - x[1]), Box::new(|_, j| {
-            j[0] = 1.0;
-            j[1] = -1.0;
-        }))
+        .constraints(
+            vec![0.0],
+            vec![0.0],
+            Box::new(|x, c| c[0] = x[0] - x[1]),
+            Box::new(|_, j| {
+                j[0] = 1.0;
+                j[1] = -1.0;
+            }),
+        )
         .hessian(Box::new(|_, _, _, _| {}))
 }
 
@@ -398,8 +420,12 @@ fn unbounded_problem_reports_the_iteration_limit() {
 /// min x - ln x from x = 10: the exact Newton step lands at x = -80 where ln is NaN, so the
 /// line search must back off. Independent computation: minimum at x = 1, f = 1.
 fn log_barrier_like() -> TestNlp {
-    TestNlp::new(vec![10.0], Box::new(|x| x[0] - x[0].ln()), Box::new(|x, g| g[0] = 1.0 - 1.0 / x[0]))
-        .hessian(Box::new(|x, s, _, h| h[0] = s / (x[0] * x[0])))
+    TestNlp::new(
+        vec![10.0],
+        Box::new(|x| x[0] - x[0].ln()),
+        Box::new(|x, g| g[0] = 1.0 - 1.0 / x[0]),
+    )
+    .hessian(Box::new(|x, s, _, h| h[0] = s / (x[0] * x[0])))
 }
 
 #[test]
@@ -418,7 +444,8 @@ fn line_search_backs_off_from_nan() {
 fn failure_at_the_start_reports_the_problem_location() {
     let mut nlp = log_barrier_like();
     nlp.x0 = vec![-1.0];
-    nlp.tagged_error = Some(EvalError::non_finite(EvalPart::Objective, 0, f64::NAN).with_tag(7).with_stage(3));
+    nlp.tagged_error =
+        Some(EvalError::non_finite(EvalPart::Objective, 0, f64::NAN).with_tag(7).with_stage(3));
     let r = solve(&mut nlp, HessianMode::Exact);
     let SqpStatus::EvaluationFailed { error } = r.status else { panic!("{:?}", r.status) };
     assert_eq!((error.tag, error.stage, error.part), (7, Some(3), EvalPart::Objective));
@@ -428,7 +455,10 @@ fn failure_at_the_start_reports_the_problem_location() {
     nlp.x0 = vec![-1.0];
     let r = solve(&mut nlp, HessianMode::Bfgs);
     let SqpStatus::EvaluationFailed { error } = r.status else { panic!("{:?}", r.status) };
-    assert_eq!((error.part, error.index, error.tag), (EvalPart::Objective, Some(0), EvalError::UNTAGGED));
+    assert_eq!(
+        (error.part, error.index, error.tag),
+        (EvalPart::Objective, Some(0), EvalError::UNTAGGED)
+    );
 }
 
 /// min x1 + x2 s.t. x1^2 + x2^2 = 4 and x1 - x2 = 1 from (0, 0): the first row's gradient
@@ -513,7 +543,8 @@ impl Nlp for Chain {
     }
     fn objective(&mut self, w: &[f64]) -> Result<f64, EvalError> {
         let n = self.stages;
-        Ok(self.h * (0..n).map(|k| w[self.x(k)].powi(2) + w[self.u(k)].powi(2)).sum::<f64>() + w[self.x(n)].powi(2))
+        Ok(self.h * (0..n).map(|k| w[self.x(k)].powi(2) + w[self.u(k)].powi(2)).sum::<f64>()
+            + w[self.x(n)].powi(2))
     }
     fn gradient(&mut self, w: &[f64], g: &mut [f64]) -> Result<(), EvalError> {
         for (j, gj) in g.iter_mut().enumerate() {
@@ -570,10 +601,20 @@ impl Nlp for Chain {
 #[test]
 fn block_bfgs_on_a_shooting_structure_matches_the_exact_hessian() {
     let chain = || Chain { stages: 20, h: 0.1 };
-    let exact = solve_nlp(chain(), &SqpSettings { hessian: HessianMode::Exact, ..SqpSettings::default() }, None, None)
-        .unwrap();
-    let bfgs = solve_nlp(chain(), &SqpSettings { hessian: HessianMode::Bfgs, ..SqpSettings::default() }, None, None)
-        .unwrap();
+    let exact = solve_nlp(
+        chain(),
+        &SqpSettings { hessian: HessianMode::Exact, ..SqpSettings::default() },
+        None,
+        None,
+    )
+    .unwrap();
+    let bfgs = solve_nlp(
+        chain(),
+        &SqpSettings { hessian: HessianMode::Bfgs, ..SqpSettings::default() },
+        None,
+        None,
+    )
+    .unwrap();
     if std::env::var("SQP_LOG").is_ok() {
         for row in bfgs.history.iter().take(30) {
             eprintln!("{} | dnorm {:e} bt {}", log_line(row), row.step_norm, row.backtracks);
@@ -667,7 +708,10 @@ fn invalid_input_is_an_error_not_a_status() {
     assert!(matches!(solve_nlp(&mut hs071(), &bad, None, None), Err(SolveError::Settings(_))));
     let mut crossed = hs071();
     crossed.xl[2] = 6.0;
-    assert!(matches!(solve_nlp(&mut crossed, &SqpSettings::default(), None, None), Err(SolveError::Problem(_))));
+    assert!(matches!(
+        solve_nlp(&mut crossed, &SqpSettings::default(), None, None),
+        Err(SolveError::Problem(_))
+    ));
     let mut no_hessian = hs071();
     no_hessian.hess = None;
     let exact = SqpSettings { hessian: HessianMode::Exact, ..SqpSettings::default() };

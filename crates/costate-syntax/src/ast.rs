@@ -296,14 +296,25 @@ pub struct Expr {
 #[derive(Clone, Debug, PartialEq)]
 pub enum ExprKind {
     /// A numeric literal, its source text kept for the formatter, with an optional unit.
-    Number { value: f64, text: String, unit: Option<UnitExpr> },
+    Number {
+        value: f64,
+        text: String,
+        unit: Option<UnitExpr>,
+    },
     /// A name: a constant, state, control, parameter, the independent variable, a function
     /// parameter, `pi`, or an enumerated setting value.
     Name(Ident),
     Neg(Box<Expr>),
-    Binary { op: BinOp, lhs: Box<Expr>, rhs: Box<Expr> },
+    Binary {
+        op: BinOp,
+        lhs: Box<Expr>,
+        rhs: Box<Expr>,
+    },
     /// A call of a built-in (`sin`, `start`, `end`, `integral`, ...) or a user function.
-    Call { callee: Ident, args: Vec<Expr> },
+    Call {
+        callee: Ident,
+        args: Vec<Expr>,
+    },
     /// Parentheses as written, kept so the formatter preserves the author's grouping.
     Paren(Box<Expr>),
     /// Placeholder where an expression could not be parsed.

@@ -42,7 +42,12 @@ pub struct Diagnostic {
 
 impl Diagnostic {
     /// A diagnostic of `code`'s default severity whose primary label says `label` at `span`.
-    pub fn new(code: Code, message: impl Into<String>, span: Span, label: impl Into<String>) -> Self {
+    pub fn new(
+        code: Code,
+        message: impl Into<String>,
+        span: Span,
+        label: impl Into<String>,
+    ) -> Self {
         Diagnostic {
             code,
             severity: code.severity,
@@ -76,7 +81,10 @@ impl Diagnostic {
 
 /// Suggest the candidate closest to `name` (Levenshtein distance at most a third of its length,
 /// at least 1), for "did you mean" help lines.
-pub fn closest_name<'a>(name: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<&'a str> {
+pub fn closest_name<'a>(
+    name: &str,
+    candidates: impl IntoIterator<Item = &'a str>,
+) -> Option<&'a str> {
     let limit = (name.chars().count() / 3).max(1);
     candidates
         .into_iter()

@@ -36,7 +36,9 @@
 //!   follows code on the same line stays there, written `code  // text` (two spaces). Comment
 //!   text is kept verbatim except for trailing whitespace. Doc comments are written `/// text`
 //!   directly above their declaration (plain comments found between a doc comment and its
-//!   declaration move above the doc comment).
+//!   declaration move above the doc comment). A `///` line inside a multi-line entry is a plain
+//!   comment to the parser (nothing follows it to document); moved above the entry it is
+//!   written `// /text` so that it stays one.
 //! * Blank lines: inside a block, one blank line where the author left one or more between two
 //!   entries or comments (so entries can be grouped), none after `{` or before `}`. At the top
 //!   level, an item is always followed by one blank line; between a comment and what follows it
@@ -277,12 +279,12 @@ impl Formatter<'_> {
         for (u, unit) in units.iter().enumerate() {
             for c in &placement.before[u] {
                 self.top_separator(prev, c.span.start);
-                self.comment_line("", c);
+                self.comment_line("", c, true);
                 prev = Some((c.span.end, false));
             }
             self.top_separator(prev, unit.start);
             for c in &placement.inside[u] {
-                self.comment_line("", c);
+                self.comment_line("", c, true);
             }
             let trailing = placement.trailing[u];
             if u < first_item {
@@ -300,7 +302,7 @@ impl Formatter<'_> {
         }
         for c in &placement.tail {
             self.top_separator(prev, c.span.start);
-            self.comment_line("", c);
+            self.comment_line("", c, false);
             prev = Some((c.span.end, false));
         }
         self.out
@@ -358,12 +360,12 @@ impl Formatter<'_> {
         for (i, (entry, unit)) in block.entries.iter().zip(&units).enumerate() {
             for c in &p.before[i] {
                 self.block_separator(prev_end, c.span.start);
-                self.comment_line(INDENT, c);
+                self.comment_line(INDENT, c, true);
                 prev_end = Some(c.span.end);
             }
             self.block_separator(prev_end, unit.start);
             for c in &p.inside[i] {
-                self.comment_line(INDENT, c);
+                self.comment_line(INDENT, c, true);
             }
             self.doc_lines(INDENT, entry.doc());
             let mut line = String::new();
@@ -373,7 +375,7 @@ impl Formatter<'_> {
         }
         for c in &p.tail {
             self.block_separator(prev_end, c.span.start);
-            self.comment_line(INDENT, c);
+            self.comment_line(INDENT, c, false);
             prev_end = Some(c.span.end);
         }
         self.line("", "}", trailing);
@@ -395,9 +397,16 @@ impl Formatter<'_> {
         self.out.push('\n');
     }
 
-    fn comment_line(&mut self, indent: &str, c: &Comment) {
+    /// An own-line comment. `attaches` says whether a declaration follows, in which case a
+    /// text beginning with a single `/` (a `///` the parser demoted to a plain comment because
+    /// it sat inside an entry) gets a space after `//`, so it does not become that
+    /// declaration's doc comment.
+    fn comment_line(&mut self, indent: &str, c: &Comment, attaches: bool) {
         self.out.push_str(indent);
         self.out.push_str("//");
+        if attaches && c.text.starts_with('/') && !c.text.starts_with("//") {
+            self.out.push(' ');
+        }
         self.out.push_str(c.text.trim_end());
         self.out.push('\n');
     }
@@ -847,7 +856,11 @@ mod tests {
 
     #[test]
     fn units_put_the_numerator_first() {
-        let factor = |n: &str, exponent| UnitFactor { name: Ident { name: n.into(), span: Z }, exponent, span: Z };
+        let factor = |n: &str, exponent| UnitFactor {
+            name: Ident { name: n.into(), span: Z },
+            exponent,
+            span: Z,
+        };
         let render = |factors| {
             let mut out = String::new();
             unit_expr(&UnitExpr { factors, span: Z }, &mut out);

@@ -103,7 +103,14 @@ pub struct Token {
 /// Splits `text` into tokens. Every byte of `text` except spaces, tabs and carriage returns
 /// belongs to exactly one token.
 pub fn lex(text: &str) -> (Vec<Token>, Vec<Diagnostic>) {
-    let mut lexer = Lexer { text, bytes: text.as_bytes(), pos: 0, line_has_code: false, tokens: Vec::new(), diagnostics: Vec::new() };
+    let mut lexer = Lexer {
+        text,
+        bytes: text.as_bytes(),
+        pos: 0,
+        line_has_code: false,
+        tokens: Vec::new(),
+        diagnostics: Vec::new(),
+    };
     lexer.run();
     (lexer.tokens, lexer.diagnostics)
 }
@@ -162,7 +169,8 @@ impl Lexer<'_> {
         self.pos = end;
         let body = &self.text[start..end];
         let is_doc = body.starts_with("///") && !body.starts_with("////");
-        let kind = if is_doc && !self.line_has_code { TokenKind::DocComment } else { TokenKind::Comment };
+        let kind =
+            if is_doc && !self.line_has_code { TokenKind::DocComment } else { TokenKind::Comment };
         self.push(kind, start);
     }
 
@@ -180,7 +188,9 @@ impl Lexer<'_> {
             let b = self.peek(0);
             if b.is_ascii_alphanumeric() || b == b'_' || (b == b'.' && self.peek(1) != b'.') {
                 self.pos += 1;
-            } else if (b == b'+' || b == b'-') && matches!(self.bytes.get(self.pos.wrapping_sub(1)), Some(b'e' | b'E')) {
+            } else if (b == b'+' || b == b'-')
+                && matches!(self.bytes.get(self.pos.wrapping_sub(1)), Some(b'e' | b'E'))
+            {
                 self.pos += 1;
             } else {
                 break;
@@ -212,14 +222,21 @@ impl Lexer<'_> {
             }
         }
         if problem.is_none() && !self.eat_exponent() {
-            problem = Some(("an exponent `e` must be followed by digits", "write the exponent like `1e-3`".into()));
+            problem = Some((
+                "an exponent `e` must be followed by digits",
+                "write the exponent like `1e-3`".into(),
+            ));
         }
         let next = self.peek(0);
-        let trailing_junk = next.is_ascii_alphanumeric() || next == b'_' || (next == b'.' && self.peek(1) != b'.');
+        let trailing_junk =
+            next.is_ascii_alphanumeric() || next == b'_' || (next == b'.' && self.peek(1) != b'.');
         if trailing_junk && problem.is_none() {
             let extra_dot = next == b'.';
             problem = Some(if extra_dot {
-                ("a number has at most one decimal point", "write a single number such as `1.25`".into())
+                (
+                    "a number has at most one decimal point",
+                    "write a single number such as `1.25`".into(),
+                )
             } else {
                 (
                     "a number cannot run into a name",
@@ -237,8 +254,13 @@ impl Lexer<'_> {
                 let whole = literal.trim_end_matches('.');
                 help = format!("write `{whole}.0` or `{whole}`");
             }
-            let diagnostic = Diagnostic::new(codes::INVALID_NUMBER, format!("invalid number `{literal}`"), Span::new(start, self.pos), label)
-                .with_help(help);
+            let diagnostic = Diagnostic::new(
+                codes::INVALID_NUMBER,
+                format!("invalid number `{literal}`"),
+                Span::new(start, self.pos),
+                label,
+            )
+            .with_help(help);
             self.diagnostics.push(diagnostic);
             self.push(TokenKind::Error, start);
             return;
@@ -377,7 +399,11 @@ impl Lexer<'_> {
             _ => {
                 self.pos += 1;
                 let c = b as char;
-                let shown = if c.is_ascii_graphic() { c.to_string() } else { c.escape_default().to_string() };
+                let shown = if c.is_ascii_graphic() {
+                    c.to_string()
+                } else {
+                    c.escape_default().to_string()
+                };
                 let mut diagnostic = Diagnostic::new(
                     codes::UNEXPECTED_CHARACTER,
                     format!("unexpected character `{shown}`"),
@@ -389,7 +415,9 @@ impl Lexer<'_> {
                         diagnostic.with_help("there is no `!=` relation; use `<=`, `>=` or `==`")
                     }
                     '.' => diagnostic.with_help("ranges are written with two dots: `0 .. 5`"),
-                    '"' => diagnostic.with_help("the language has no strings; enumerated settings are written as names"),
+                    '"' => diagnostic.with_help(
+                        "the language has no strings; enumerated settings are written as names",
+                    ),
                     '#' => diagnostic.with_help("comments start with `//`"),
                     _ => diagnostic,
                 };
@@ -438,7 +466,10 @@ mod tests {
     #[test]
     fn doc_comments_only_on_their_own_line() {
         use TokenKind::*;
-        assert_eq!(kinds("/// a\nx /// b\n//// c"), vec![DocComment, Newline, Ident, Comment, Newline, Comment]);
+        assert_eq!(
+            kinds("/// a\nx /// b\n//// c"),
+            vec![DocComment, Newline, Ident, Comment, Newline, Comment]
+        );
     }
 
     #[test]
@@ -447,7 +478,10 @@ mod tests {
         let kinds: Vec<_> = tokens.iter().map(|t| t.kind).collect();
         assert_eq!(kinds, vec![TokenKind::Ident, TokenKind::Error, TokenKind::Ident]);
         let codes: Vec<_> = diagnostics.iter().map(|d| d.code).collect();
-        assert_eq!(codes, vec![codes::NON_ASCII_NAME, codes::UNEXPECTED_CHARACTER, codes::NON_ASCII_NAME]);
+        assert_eq!(
+            codes,
+            vec![codes::NON_ASCII_NAME, codes::UNEXPECTED_CHARACTER, codes::NON_ASCII_NAME]
+        );
         assert_eq!(diagnostics[1].help.as_deref(), Some("write `<=` instead"));
     }
 }

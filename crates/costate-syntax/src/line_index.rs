@@ -70,11 +70,7 @@ impl LineIndex {
             return text.len();
         }
         let start = self.line_starts[pos.line as usize];
-        let end = self
-            .line_starts
-            .get(pos.line as usize + 1)
-            .map(|&s| s - 1)
-            .unwrap_or(text.len());
+        let end = self.line_starts.get(pos.line as usize + 1).map(|&s| s - 1).unwrap_or(text.len());
         let mut units = 0u32;
         for (i, ch) in text[start..end].char_indices() {
             let next = units + ch.len_utf16() as u32;

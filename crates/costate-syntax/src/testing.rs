@@ -78,7 +78,10 @@ pub fn parse_annotations(text: &str) -> Result<Vec<Expected>, String> {
             && code.starts_with(|c: char| c.is_ascii_uppercase())
             && code[1..].chars().all(|c| c.is_ascii_digit());
         if !code_ok {
-            return Err(format!("line {}: expected a code such as `E0104` after the span, found `{code}`", n + 1));
+            return Err(format!(
+                "line {}: expected a code such as `E0104` after the span, found `{code}`",
+                n + 1
+            ));
         }
         expected.push(Expected {
             code: code.to_string(),
@@ -93,10 +96,14 @@ pub fn parse_annotations(text: &str) -> Result<Vec<Expected>, String> {
 fn column_form(rest: &str, line: usize) -> Result<(usize, usize, String), String> {
     let rest = rest.trim_start();
     let (range, tail) = rest.split_once(char::is_whitespace).unwrap_or((rest, ""));
-    let parsed = range.split_once("..").and_then(|(a, b)| Some((a.parse::<usize>().ok()?, b.parse::<usize>().ok()?)));
+    let parsed = range
+        .split_once("..")
+        .and_then(|(a, b)| Some((a.parse::<usize>().ok()?, b.parse::<usize>().ok()?)));
     match parsed {
         Some((start, end)) if start <= end => Ok((start, end, tail.to_string())),
-        _ => Err(format!("line {line}: expected `//~ START..END CODE message`, found `//~ {rest}`")),
+        _ => {
+            Err(format!("line {line}: expected `//~ START..END CODE message`, found `//~ {rest}`"))
+        }
     }
 }
 
@@ -108,9 +115,9 @@ pub fn check_annotations(text: &str, diagnostics: &[Diagnostic]) -> Result<(), S
     let mut unmatched: Vec<&Diagnostic> = diagnostics.iter().collect();
     let mut problems = Vec::new();
     for e in &expected {
-        let found = unmatched
-            .iter()
-            .position(|d| d.code.id == e.code && d.primary.span == e.span && d.message.contains(&e.message));
+        let found = unmatched.iter().position(|d| {
+            d.code.id == e.code && d.primary.span == e.span && d.message.contains(&e.message)
+        });
         match found {
             Some(i) => {
                 unmatched.swap_remove(i);
@@ -121,7 +128,11 @@ pub fn check_annotations(text: &str, diagnostics: &[Diagnostic]) -> Result<(), S
                 position(&index, e.span),
                 text.get(e.span.range()).unwrap_or("<out of range>"),
                 e.line,
-                if e.message.is_empty() { String::new() } else { format!(" with message containing {:?}", e.message) },
+                if e.message.is_empty() {
+                    String::new()
+                } else {
+                    format!(" with message containing {:?}", e.message)
+                },
             )),
         }
     }
@@ -167,11 +178,13 @@ mod tests {
     #[test]
     fn mismatches_are_listed() {
         let text = "ab cd\n// ^^ E0104\n";
-        let wrong_span = Diagnostic::new(codes::UNEXPECTED_TOKEN, "unexpected `ab`", Span::new(0, 2), "here");
+        let wrong_span =
+            Diagnostic::new(codes::UNEXPECTED_TOKEN, "unexpected `ab`", Span::new(0, 2), "here");
         let err = check_annotations(text, &[wrong_span]).unwrap_err();
         assert!(err.contains("missing: E0104 at 1:4"), "{err}");
         assert!(err.contains("unexpected: E0104 at 1:1"), "{err}");
-        let right = Diagnostic::new(codes::UNEXPECTED_TOKEN, "unexpected `cd`", Span::new(3, 5), "here");
+        let right =
+            Diagnostic::new(codes::UNEXPECTED_TOKEN, "unexpected `cd`", Span::new(3, 5), "here");
         assert_eq!(check_annotations(text, &[right]), Ok(()));
     }
 

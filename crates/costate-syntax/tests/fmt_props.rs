@@ -69,7 +69,7 @@ fn expr() -> BoxedStrategy<String> {
         let op = prop::sample::select(vec!["+", "-", "*", "/", "^"]);
         let callee = prop::sample::select(vec!["sin", "atan2", "max", "end", "integral", "f"]);
         prop_oneof![
-            3 => (inner.clone(), ws(), op, ws(), inner.clone())
+            3 => (inner.clone(), ws(), op, line_break(), inner.clone())
                 .prop_map(|(a, w1, op, w2, b)| format!("{a}{w1}{op}{w2}{b}")),
             1 => (ws(), inner.clone()).prop_map(|(w, a)| format!("-{w}{a}")),
             1 => (ws(), inner.clone(), ws()).prop_map(|(w1, a, w2)| format!("({w1}{a}{w2})")),
@@ -79,6 +79,16 @@ fn expr() -> BoxedStrategy<String> {
         ]
     })
     .boxed()
+}
+
+/// Whitespace after an operator or a comma: mostly spaces, sometimes a line break (the entry
+/// continues on the next line), sometimes a comment and a line break.
+fn line_break() -> impl Strategy<Value = String> {
+    prop_oneof![
+        8 => ws().prop_map(String::from),
+        1 => Just("\n    ".to_string()),
+        1 => comment_text().prop_map(|t| format!("  //{t}\n    ")),
+    ]
 }
 
 fn comment_text() -> impl Strategy<Value = &'static str> {
@@ -142,7 +152,7 @@ fn attr() -> BoxedStrategy<String> {
 }
 
 fn var_decl() -> BoxedStrategy<String> {
-    (name(), prop::option::of((ws(), unit())), prop::collection::vec((attr(), ws()), 0..4))
+    (name(), prop::option::of((ws(), unit())), prop::collection::vec((attr(), line_break()), 0..4))
         .prop_map(|(n, u, attrs)| {
             let mut s = n;
             if let Some((w, u)) = u {

@@ -45,6 +45,7 @@ fn every_syntax_code_is_exercised_by_a_fixture() {
     for entry in std::fs::read_dir(&dir).expect("fixture directory exists") {
         all += &std::fs::read_to_string(entry.expect("entry").path()).unwrap_or_default();
     }
-    let missing: Vec<_> = costate_syntax::codes::ALL.iter().filter(|c| !all.contains(c.id)).map(|c| c.id).collect();
+    let missing: Vec<_> =
+        costate_syntax::codes::ALL.iter().filter(|c| !all.contains(c.id)).map(|c| c.id).collect();
     assert!(missing.is_empty(), "codes without a fixture: {missing:?}");
 }

@@ -18,7 +18,11 @@ fn valid_fixtures_parse_cleanly_and_match_their_snapshots() {
         let text = std::fs::read_to_string(&path).expect("readable fixture");
         let parse = costate_syntax::parse(&text);
         let name = path.file_stem().and_then(|s| s.to_str()).expect("utf-8 file name");
-        assert!(parse.diagnostics.is_empty(), "{name}: unexpected diagnostics {:#?}", parse.diagnostics);
+        assert!(
+            parse.diagnostics.is_empty(),
+            "{name}: unexpected diagnostics {:#?}",
+            parse.diagnostics
+        );
         insta::assert_snapshot!(name, format!("{:#?}", parse.file));
     }
 }

@@ -103,7 +103,9 @@ impl TestNlp {
             (self.grad)(x, &mut g);
             let mut j = vec![0.0; m * n];
             (self.jac)(x, &mut j);
-            (0..n).map(|k| 0.5 * g[k] + (0..m).map(|i| lambda[i] * j[i * n + k]).sum::<f64>()).collect::<Vec<f64>>()
+            (0..n)
+                .map(|k| 0.5 * g[k] + (0..m).map(|i| lambda[i] * j[i * n + k]).sum::<f64>())
+                .collect::<Vec<f64>>()
         };
         let mut hd = vec![0.0; n * n];
         if let Some(hess) = &self.hess {
@@ -198,7 +200,13 @@ impl Nlp for TestNlp {
         }
         Some(p)
     }
-    fn hessian(&mut self, w: &[f64], sigma: f64, lambda: &[f64], values: &mut [f64]) -> Result<(), EvalError> {
+    fn hessian(
+        &mut self,
+        w: &[f64],
+        sigma: f64,
+        lambda: &[f64],
+        values: &mut [f64],
+    ) -> Result<(), EvalError> {
         let n = self.n();
         let mut dense = vec![0.0; n * n];
         if let Some(h) = &self.hess {

@@ -79,10 +79,14 @@ fn punct<'a>(t: Tok<'a>) -> impl Parser<'a, In<'a>, Span, Ex<'a>> + Clone {
 }
 
 fn ident<'a>() -> impl Parser<'a, In<'a>, Ident, Ex<'a>> + Clone {
-    select! { Tok::Ident(name) = e => Ident { name: name.to_string(), span: sp(e.span()) } }.labelled("a name")
+    select! { Tok::Ident(name) = e => Ident { name: name.to_string(), span: sp(e.span()) } }
+        .labelled("a name")
 }
 
-fn keyword<'a>(word: &'static str, label: &'static str) -> impl Parser<'a, In<'a>, Span, Ex<'a>> + Clone {
+fn keyword<'a>(
+    word: &'static str,
+    label: &'static str,
+) -> impl Parser<'a, In<'a>, Span, Ex<'a>> + Clone {
     select! { Tok::Ident(w) = e if w == word => sp(e.span()) }.labelled(label)
 }
 
@@ -92,20 +96,32 @@ fn equals_or_report<'a>() -> impl Parser<'a, In<'a>, bool, Ex<'a>> + Clone {
 }
 
 fn missing_equals(lhs: &str, span: Span) -> Diagnostic {
-    Diagnostic::new(codes::MISSING_EQUALS, format!("missing `=` after `{lhs}`"), span, "expected `=` after this")
-        .with_help(format!("write `{lhs} = ...`"))
+    Diagnostic::new(
+        codes::MISSING_EQUALS,
+        format!("missing `=` after `{lhs}`"),
+        span,
+        "expected `=` after this",
+    )
+    .with_help(format!("write `{lhs} = ...`"))
 }
 
 /// The inside of a unit bracket, validated by hand so every mistake gets a unit-specific
 /// message: `1`, `m`, `kg*m^2/s^2`, `1/s`, `s^-1`.
-fn unit_from_tokens(open: Span, body: &[(Tok<'_>, SimpleSpan)], close: Span) -> Result<UnitExpr, Diagnostic> {
+fn unit_from_tokens(
+    open: Span,
+    body: &[(Tok<'_>, SimpleSpan)],
+    close: Span,
+) -> Result<UnitExpr, Diagnostic> {
     let span = open.to(close);
     let invalid = |at: Span, label: &str| {
         Diagnostic::new(codes::INVALID_UNIT, "invalid unit", at, label)
             .with_help("write units like `[m]`, `[m/s^2]`, `[kg*m^2]`, `[1/s]` or `[1]`")
     };
     if body.is_empty() {
-        return Err(invalid(span, "a unit needs at least one symbol; write `[1]` for a dimensionless quantity"));
+        return Err(invalid(
+            span,
+            "a unit needs at least one symbol; write `[1]` for a dimensionless quantity",
+        ));
     }
     let mut factors = Vec::new();
     let mut i = 0;
@@ -117,7 +133,9 @@ fn unit_from_tokens(open: Span, body: &[(Tok<'_>, SimpleSpan)], close: Span) -> 
         if expect_factor {
             match tok {
                 Tok::Number("1") if i == 0 => {}
-                Tok::Number(_) => return Err(invalid(at, "the only number allowed in a unit is a leading `1`")),
+                Tok::Number(_) => {
+                    return Err(invalid(at, "the only number allowed in a unit is a leading `1`"))
+                }
                 Tok::Ident(name) => {
                     let mut exponent: i32 = 1;
                     let mut end = at;
@@ -126,22 +144,31 @@ fn unit_from_tokens(open: Span, body: &[(Tok<'_>, SimpleSpan)], close: Span) -> 
                         let at_number = i + 2 + usize::from(negative);
                         match body.get(at_number) {
                             Some((Tok::Number(text), ns)) => {
-                                exponent = text
-                                    .parse::<i32>()
-                                    .map_err(|_| invalid(sp(*ns), "a unit exponent must be a whole number"))?;
+                                exponent = text.parse::<i32>().map_err(|_| {
+                                    invalid(sp(*ns), "a unit exponent must be a whole number")
+                                })?;
                                 if negative {
                                     exponent = -exponent;
                                 }
                                 end = sp(*ns);
                                 i = at_number;
                             }
-                            _ => return Err(invalid(sp(*caret), "expected a whole-number exponent after `^`")),
+                            _ => {
+                                return Err(invalid(
+                                    sp(*caret),
+                                    "expected a whole-number exponent after `^`",
+                                ))
+                            }
                         }
                     }
                     if divide {
                         exponent = -exponent;
                     }
-                    factors.push(UnitFactor { name: Ident { name: name.to_string(), span: at }, exponent, span: at.to(end) });
+                    factors.push(UnitFactor {
+                        name: Ident { name: name.to_string(), span: at },
+                        exponent,
+                        span: at.to(end),
+                    });
                 }
                 _ => return Err(invalid(at, "expected a unit symbol such as `m` or `s`")),
             }
@@ -164,20 +191,27 @@ fn unit_from_tokens(open: Span, body: &[(Tok<'_>, SimpleSpan)], close: Span) -> 
 }
 
 fn unit<'a>() -> impl Parser<'a, In<'a>, Option<UnitExpr>, Ex<'a>> + Clone {
-    let inner = any().filter(|t: &Tok| *t != Tok::RBracket).map_with(|t, e| (t, e.span())).repeated().collect::<Vec<_>>();
-    punct(Tok::LBracket).then(inner).then(punct(Tok::RBracket)).map_with(|((open, body), close), e| {
-        match unit_from_tokens(open, &body, close) {
+    let inner = any()
+        .filter(|t: &Tok| *t != Tok::RBracket)
+        .map_with(|t, e| (t, e.span()))
+        .repeated()
+        .collect::<Vec<_>>();
+    punct(Tok::LBracket).then(inner).then(punct(Tok::RBracket)).map_with(
+        |((open, body), close), e| match unit_from_tokens(open, &body, close) {
             Ok(u) => Some(u),
             Err(d) => {
                 report(e, d);
                 None
             }
-        }
-    })
+        },
+    )
 }
 
 fn binary(op: BinOp, lhs: Expr, rhs: Expr) -> Expr {
-    Expr { span: lhs.span.to(rhs.span), kind: ExprKind::Binary { op, lhs: Box::new(lhs), rhs: Box::new(rhs) } }
+    Expr {
+        span: lhs.span.to(rhs.span),
+        kind: ExprKind::Binary { op, lhs: Box::new(lhs), rhs: Box::new(rhs) },
+    }
 }
 
 fn negate(minus: Span, e: Expr) -> Expr {
@@ -286,7 +320,8 @@ fn attributes<'a>(expr: P<'a, Expr>) -> impl Parser<'a, In<'a>, Vec<Attr>, Ex<'a
     }
     .then(bound_value)
     .map(|((kind, kind_span), value)| Some(attr(kind, kind_span, value)));
-    let in_attr = in_range.map(|(kind_span, r)| Some(attr(AttrKind::In, kind_span, AttrValue::Range(r))));
+    let in_attr =
+        in_range.map(|(kind_span, r)| Some(attr(AttrKind::In, kind_span, AttrValue::Range(r))));
     let guess_scale = select! {
         Tok::Ident("guess") = e => (AttrKind::Guess, sp(e.span())),
         Tok::Ident("scale") = e => (AttrKind::Scale, sp(e.span())),
@@ -347,8 +382,13 @@ fn relation<'a>() -> impl Parser<'a, In<'a>, (RelOp, Span), Ex<'a>> + Clone {
         };
         report(
             e,
-            Diagnostic::new(codes::INVALID_RELATION, format!("`{written}` is not a relation"), span, label)
-                .with_help(format!("write `{fix}`")),
+            Diagnostic::new(
+                codes::INVALID_RELATION,
+                format!("`{written}` is not a relation"),
+                span,
+                label,
+            )
+            .with_help(format!("write `{fix}`")),
         );
         (op, span)
     });
@@ -364,8 +404,13 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
             if name.is_none() {
                 report(
                     e,
-                    Diagnostic::new(codes::MISSING_PROBLEM_HEADER, "missing problem name", kw, "expected a name after `problem`")
-                        .with_help("write `problem my_problem`"),
+                    Diagnostic::new(
+                        codes::MISSING_PROBLEM_HEADER,
+                        "missing problem name",
+                        kw,
+                        "expected a name after `problem`",
+                    )
+                    .with_help("write `problem my_problem`"),
                 );
             }
             name
@@ -389,7 +434,10 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
         .map(Some)
         .boxed();
 
-    let params = ident().separated_by(just(Tok::Comma)).collect::<Vec<_>>().delimited_by(just(Tok::LParen), just(Tok::RParen));
+    let params = ident()
+        .separated_by(just(Tok::Comma))
+        .collect::<Vec<_>>()
+        .delimited_by(just(Tok::LParen), just(Tok::RParen));
     let fn_decl = keyword("fn", "`fn`")
         .then(ident())
         .then(params.map_with(|p, e| (p, sp(e.span()))))
@@ -453,24 +501,37 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
         Tok::Ident("minimize") = e => (Sense::Minimize, sp(e.span())),
         Tok::Ident("maximize") = e => (Sense::Maximize, sp(e.span())),
     };
-    let near_sense = select! { Tok::Ident(w) = e if closest_name(w, senses).is_some() => (w, sp(e.span())) }
-        .map_with(move |(word, span), e| {
-            let near = closest_name(word, senses).unwrap_or("minimize");
-            report(
-                e,
-                Diagnostic::new(codes::MISSING_COST_SENSE, format!("unknown cost sense `{word}`"), span, "expected `minimize` or `maximize`")
+    let near_sense =
+        select! { Tok::Ident(w) = e if closest_name(w, senses).is_some() => (w, sp(e.span())) }
+            .map_with(move |(word, span), e| {
+                let near = closest_name(word, senses).unwrap_or("minimize");
+                report(
+                    e,
+                    Diagnostic::new(
+                        codes::MISSING_COST_SENSE,
+                        format!("unknown cost sense `{word}`"),
+                        span,
+                        "expected `minimize` or `maximize`",
+                    )
                     .with_help(format!("did you mean `{near}`?")),
-            );
-            (if near == "maximize" { Sense::Maximize } else { Sense::Minimize }, span)
-        });
-    let stated = choice((sense, near_sense)).then(expr.clone()).then_ignore(end()).map(|((sense, sense_span), expr)| {
-        Some(CostStmt { doc: None, sense, sense_span, span: sense_span.to(expr.span), expr })
-    });
+                );
+                (if near == "maximize" { Sense::Maximize } else { Sense::Minimize }, span)
+            });
+    let stated = choice((sense, near_sense)).then(expr.clone()).then_ignore(end()).map(
+        |((sense, sense_span), expr)| {
+            Some(CostStmt { doc: None, sense, sense_span, span: sense_span.to(expr.span), expr })
+        },
+    );
     let bare = expr.clone().then_ignore(end()).map_with(|expr, e| {
         report(
             e,
-            Diagnostic::new(codes::MISSING_COST_SENSE, "cost has no `minimize` or `maximize`", expr.span, "is this to be minimized or maximized?")
-                .with_help("write `minimize <expression>` or `maximize <expression>`"),
+            Diagnostic::new(
+                codes::MISSING_COST_SENSE,
+                "cost has no `minimize` or `maximize`",
+                expr.span,
+                "is this to be minimized or maximized?",
+            )
+            .with_help("write `minimize <expression>` or `maximize <expression>`"),
         );
         None
     });
@@ -485,8 +546,13 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
             if rest.is_empty() {
                 report(
                     e,
-                    Diagnostic::new(codes::MISSING_RELATION, "constraint has no relation", first.span, "nothing is compared here")
-                        .with_help("compare two sides with `<=`, `>=` or `==`, e.g. `0 <= x <= 5`"),
+                    Diagnostic::new(
+                        codes::MISSING_RELATION,
+                        "constraint has no relation",
+                        first.span,
+                        "nothing is compared here",
+                    )
+                    .with_help("compare two sides with `<=`, `>=` or `==`, e.g. `0 <= x <= 5`"),
                 );
                 return None;
             }
@@ -517,12 +583,18 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
     .or(select! { Tok::Eq = e => sp(e.span()) }.map_with(|span, e| {
         report(
             e,
-            Diagnostic::new(codes::INVALID_RELATION, "`=` is not a relation", span, "`=` defines, it does not compare")
-                .with_help("write `==`"),
+            Diagnostic::new(
+                codes::INVALID_RELATION,
+                "`=` is not a relation",
+                span,
+                "`=` defines, it does not compare",
+            )
+            .with_help("write `==`"),
         );
     }))
     .labelled("`==`");
-    let tolerance = keyword("within", "`within`").ignore_then(expr.clone()).then(punct(Tok::Percent).or_not());
+    let tolerance =
+        keyword("within", "`within`").ignore_then(expr.clone()).then(punct(Tok::Percent).or_not());
     let full = expr
         .clone()
         // Not `then_ignore`: chumsky skips the mapping closures of ignored parsers, and
@@ -535,13 +607,25 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
         .map_with(|((target, value), tol), e| match tol {
             Some((tolerance, percent)) => {
                 let end = percent.unwrap_or(tolerance.span);
-                Some(Expectation { doc: None, span: target.span.to(end), target, value, tolerance, percent: percent.is_some() })
+                Some(Expectation {
+                    doc: None,
+                    span: target.span.to(end),
+                    target,
+                    value,
+                    tolerance,
+                    percent: percent.is_some(),
+                })
             }
             None => {
                 report(
                     e,
-                    Diagnostic::new(codes::MISSING_TOLERANCE, "expectation has no tolerance", target.span.to(value.span), "how close must the result be?")
-                        .with_help("add `within 1%` (relative) or `within 0.05` (absolute)"),
+                    Diagnostic::new(
+                        codes::MISSING_TOLERANCE,
+                        "expectation has no tolerance",
+                        target.span.to(value.span),
+                        "how close must the result be?",
+                    )
+                    .with_help("add `within 1%` (relative) or `within 0.05` (absolute)"),
                 );
                 None
             }
@@ -549,12 +633,27 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
     let no_relation = expr.clone().then_ignore(end()).map_with(|target, e| {
         report(
             e,
-            Diagnostic::new(codes::MISSING_RELATION, "expectation has no `==`", target.span, "nothing is compared here")
-                .with_help("write `target == value within tolerance`, e.g. `end(t) == 8.9 within 5%`"),
+            Diagnostic::new(
+                codes::MISSING_RELATION,
+                "expectation has no `==`",
+                target.span,
+                "nothing is compared here",
+            )
+            .with_help("write `target == value within tolerance`, e.g. `end(t) == 8.9 within 5%`"),
         );
         None
     });
     let expectation = choice((full, no_relation)).boxed();
 
-    Grammar { header, const_decl, fn_decl, var_decl, equation, cost, constraint, setting, expectation }
+    Grammar {
+        header,
+        const_decl,
+        fn_decl,
+        var_decl,
+        equation,
+        cost,
+        constraint,
+        setting,
+        expectation,
+    }
 }

@@ -20,7 +20,7 @@ use chumsky::prelude::{Input as _, Parser as _, Rich, SimpleSpan};
 use crate::ast::*;
 use crate::lexer::{lex, TokenKind};
 use crate::{closest_name, codes, Diagnostic, Span};
-use grammar::{grammar, sp, split, Grammar, Sink, SplitFn, Spanned, P};
+use grammar::{grammar, sp, split, Grammar, Sink, Spanned, SplitFn, P};
 use tok::Tok;
 
 /// The result of parsing one file: always a tree, plus the syntax diagnostics.
@@ -31,14 +31,15 @@ pub struct Parse {
 }
 
 /// Items written as `keyword { entries }`.
-pub const BLOCK_KEYWORDS: &[&str] =
-    &["const", "param", "state", "control", "dynamics", "cost", "path", "boundary", "solve", "expect"];
+pub const BLOCK_KEYWORDS: &[&str] = &[
+    "const", "param", "state", "control", "dynamics", "cost", "path", "boundary", "solve", "expect",
+];
 /// Items written on one line: `problem NAME`, `fn f(x) = ...`, `time t [s]: ...`.
 pub const LINE_KEYWORDS: &[&str] = &["problem", "fn", "time"];
 
 /// Deepest parenthesis nesting accepted in one entry; deeper input is reported, not parsed, so
 /// neither the parser nor later tree walks can exhaust the stack.
-const MAX_NESTING: usize = 64;
+const MAX_NESTING: usize = 32;
 /// Most operators accepted in one entry, for the same reason (each deepens the tree by one).
 const MAX_OPERATORS: usize = 2000;
 
@@ -89,7 +90,10 @@ pub fn parse(text: &str) -> Parse {
 /// Pairs `(`/`)` and `[`/`]`, reporting the ones left unpaired. Braces end any open pair:
 /// a parenthesis never spans blocks. Returns which tokens were reported (their entry's own
 /// parse error would only repeat the news) and, per token, how many pairs enclose it.
-fn match_delimiters(toks: &[Spanned<'_>], diagnostics: &mut Vec<Diagnostic>) -> (Vec<bool>, Vec<usize>) {
+fn match_delimiters(
+    toks: &[Spanned<'_>],
+    diagnostics: &mut Vec<Diagnostic>,
+) -> (Vec<bool>, Vec<usize>) {
     let mut poison = vec![false; toks.len()];
     let mut delta = vec![0i64; toks.len() + 1];
     let mut stack: Vec<usize> = Vec::new();
@@ -97,15 +101,21 @@ fn match_delimiters(toks: &[Spanned<'_>], diagnostics: &mut Vec<Diagnostic>) -> 
         poison[i] = true;
         let (open, close) = if toks[i].0 == Tok::LParen { ("(", ")") } else { ("[", "]") };
         diagnostics.push(
-            Diagnostic::new(codes::UNCLOSED_DELIMITER, format!("unclosed `{open}`"), sp(toks[i].1), format!("this `{open}` is never closed"))
-                .with_help(format!("add the matching `{close}`")),
+            Diagnostic::new(
+                codes::UNCLOSED_DELIMITER,
+                format!("unclosed `{open}`"),
+                sp(toks[i].1),
+                format!("this `{open}` is never closed"),
+            )
+            .with_help(format!("add the matching `{close}`")),
         );
     };
     for (i, (tok, span)) in toks.iter().enumerate() {
         match tok {
             Tok::LParen | Tok::LBracket => stack.push(i),
             Tok::RParen | Tok::RBracket => {
-                let (want, open) = if *tok == Tok::RParen { (Tok::LParen, "(") } else { (Tok::LBracket, "[") };
+                let (want, open) =
+                    if *tok == Tok::RParen { (Tok::LParen, "(") } else { (Tok::LBracket, "[") };
                 if let Some(at) = stack.iter().rposition(|&j| toks[j].0 == want) {
                     for j in stack.split_off(at + 1) {
                         unclosed(j, &mut poison, diagnostics);
@@ -116,8 +126,13 @@ fn match_delimiters(toks: &[Spanned<'_>], diagnostics: &mut Vec<Diagnostic>) -> 
                 } else {
                     poison[i] = true;
                     diagnostics.push(
-                        Diagnostic::new(codes::UNMATCHED_DELIMITER, format!("unmatched `{tok}`"), sp(*span), format!("no `{open}` opens this"))
-                            .with_help(format!("remove it, or add the matching `{open}` before it")),
+                        Diagnostic::new(
+                            codes::UNMATCHED_DELIMITER,
+                            format!("unmatched `{tok}`"),
+                            sp(*span),
+                            format!("no `{open}` opens this"),
+                        )
+                        .with_help(format!("remove it, or add the matching `{open}` before it")),
                     );
                 }
             }
@@ -173,17 +188,29 @@ fn significant_tokens<'a>(
                 if inside_pair || continues {
                     // A new item on the next line always ends the entry: a dangling operator
                     // must not pull the next item into this one.
-                    let next = raw[i..].iter().position(|(t, _)| !matches!(t, Tok::Newline | Tok::Doc(_))).map(|k| i + k);
+                    let next = raw[i..]
+                        .iter()
+                        .position(|(t, _)| !matches!(t, Tok::Newline | Tok::Doc(_)))
+                        .map(|k| i + k);
                     if !next.is_some_and(|k| starts_item(raw, k)) {
                         continue;
                     }
                 }
             }
             Tok::Doc(text) => {
-                let at_entry_start =
-                    matches!(out.last(), None | Some((Tok::Newline | Tok::Semi | Tok::LBrace | Tok::RBrace | Tok::Doc(_), _)));
+                let at_entry_start = matches!(
+                    out.last(),
+                    None | Some((
+                        Tok::Newline | Tok::Semi | Tok::LBrace | Tok::RBrace | Tok::Doc(_),
+                        _
+                    ))
+                );
                 if !at_entry_start {
-                    comments.push(Comment { text: text.get(2..).unwrap_or("").to_string(), span: sp(span), own_line: true });
+                    comments.push(Comment {
+                        text: text.get(2..).unwrap_or("").to_string(),
+                        span: sp(span),
+                        own_line: true,
+                    });
                     continue;
                 }
             }
@@ -264,9 +291,15 @@ impl<'t> Driver<'t, 't> {
     fn dangling_doc(&mut self, doc: Option<Doc>) {
         let Some(doc) = doc else { return };
         // Recover the individual lines from the tokens that formed the doc.
-        for &(tok, span) in self.toks.iter().filter(|(_, s)| doc.span.start <= s.start && s.end <= doc.span.end) {
+        for &(tok, span) in
+            self.toks.iter().filter(|(_, s)| doc.span.start <= s.start && s.end <= doc.span.end)
+        {
             if let Tok::Doc(text) = tok {
-                self.comments.push(Comment { text: text.get(2..).unwrap_or("").to_string(), span: sp(span), own_line: true });
+                self.comments.push(Comment {
+                    text: text.get(2..).unwrap_or("").to_string(),
+                    span: sp(span),
+                    own_line: true,
+                });
             }
         }
     }
@@ -284,7 +317,8 @@ impl<'t> Driver<'t, 't> {
         let mut sink = Sink::default();
         let (output, errors) = parser.parse_with_state(input, &mut sink).into_output_errors();
         self.diagnostics.append(&mut sink.diagnostics);
-        let already_reported = self.poison[range].iter().any(|&p| p) || slice.iter().any(|(t, _)| *t == Tok::Error);
+        let already_reported =
+            self.poison[range].iter().any(|&p| p) || slice.iter().any(|(t, _)| *t == Tok::Error);
         if let Some(error) = errors.first() {
             if !already_reported {
                 self.diagnostics.push(convert_error(error, slice));
@@ -294,7 +328,13 @@ impl<'t> Driver<'t, 't> {
     }
 
     fn file(&mut self, g: &Grammar<'t>, len: usize) -> File {
-        let mut file = File { doc: None, name: None, items: Vec::new(), comments: Vec::new(), span: Span::new(0, len) };
+        let mut file = File {
+            doc: None,
+            name: None,
+            items: Vec::new(),
+            comments: Vec::new(),
+            span: Span::new(0, len),
+        };
         let mut header_seen = false;
         loop {
             self.skip_separators();
@@ -311,8 +351,15 @@ impl<'t> Driver<'t, 't> {
                     if header_seen {
                         self.pos = end;
                         self.diagnostics.push(
-                            Diagnostic::new(codes::DUPLICATE_PROBLEM_HEADER, "second `problem` header", kw, "a file states one problem")
-                                .with_help("remove this line, or move the second problem to its own file"),
+                            Diagnostic::new(
+                                codes::DUPLICATE_PROBLEM_HEADER,
+                                "second `problem` header",
+                                kw,
+                                "a file states one problem",
+                            )
+                            .with_help(
+                                "remove this line, or move the second problem to its own file",
+                            ),
                         );
                         self.dangling_doc(doc);
                         continue;
@@ -322,10 +369,18 @@ impl<'t> Driver<'t, 't> {
                     header_seen = true;
                     if !file.items.is_empty() {
                         // The early "missing header" is superseded by the precise complaint.
-                        self.diagnostics.retain(|d| !(d.code == codes::MISSING_PROBLEM_HEADER && d.message == MISSING_HEADER));
+                        self.diagnostics.retain(|d| {
+                            !(d.code == codes::MISSING_PROBLEM_HEADER
+                                && d.message == MISSING_HEADER)
+                        });
                         self.diagnostics.push(
-                            Diagnostic::new(codes::MISSING_PROBLEM_HEADER, "`problem` header must come first", kw, "other items come before this header")
-                                .with_help("move `problem NAME` to the top of the file"),
+                            Diagnostic::new(
+                                codes::MISSING_PROBLEM_HEADER,
+                                "`problem` header must come first",
+                                kw,
+                                "other items come before this header",
+                            )
+                            .with_help("move `problem NAME` to the top of the file"),
                         );
                     }
                     if file.doc.is_none() {
@@ -335,20 +390,32 @@ impl<'t> Driver<'t, 't> {
                     }
                     file.name = name;
                 }
-                Tok::Ident(word) if BLOCK_KEYWORDS.contains(&word) || LINE_KEYWORDS.contains(&word) => {
+                Tok::Ident(word)
+                    if BLOCK_KEYWORDS.contains(&word) || LINE_KEYWORDS.contains(&word) =>
+                {
                     if !header_seen && file.items.is_empty() {
                         let kw = self.span(self.pos);
                         self.diagnostics.push(
-                            Diagnostic::new(codes::MISSING_PROBLEM_HEADER, MISSING_HEADER, kw, "expected `problem NAME` before this item")
-                                .with_help("start the file with `problem my_problem`"),
+                            Diagnostic::new(
+                                codes::MISSING_PROBLEM_HEADER,
+                                MISSING_HEADER,
+                                kw,
+                                "expected `problem NAME` before this item",
+                            )
+                            .with_help("start the file with `problem my_problem`"),
                         );
                     }
                     self.item(g, word, doc, &mut file.items);
                 }
                 Tok::RBrace => {
                     self.diagnostics.push(
-                        Diagnostic::new(codes::UNMATCHED_DELIMITER, "unmatched `}`", self.span(self.pos), "no block is open here")
-                            .with_help("remove it, or add the block it should close"),
+                        Diagnostic::new(
+                            codes::UNMATCHED_DELIMITER,
+                            "unmatched `}`",
+                            self.span(self.pos),
+                            "no block is open here",
+                        )
+                        .with_help("remove it, or add the block it should close"),
                     );
                     self.dangling_doc(doc);
                     self.pos += 1;
@@ -363,8 +430,13 @@ impl<'t> Driver<'t, 't> {
         if !header_seen && file.items.is_empty() {
             let span = self.toks.first().map_or(Span::new(0, 0), |t| sp(t.1));
             self.diagnostics.push(
-                Diagnostic::new(codes::MISSING_PROBLEM_HEADER, MISSING_HEADER, span, "expected `problem NAME` here")
-                    .with_help("start the file with `problem my_problem`"),
+                Diagnostic::new(
+                    codes::MISSING_PROBLEM_HEADER,
+                    MISSING_HEADER,
+                    span,
+                    "expected `problem NAME` here",
+                )
+                .with_help("start the file with `problem my_problem`"),
             );
         }
         file
@@ -375,15 +447,25 @@ impl<'t> Driver<'t, 't> {
         let keywords = LINE_KEYWORDS.iter().chain(BLOCK_KEYWORDS).copied();
         let d = match tok {
             Tok::Ident(word) => {
-                let d = Diagnostic::new(codes::UNKNOWN_ITEM, format!("unknown item `{word}`"), span, "expected an item keyword");
+                let d = Diagnostic::new(
+                    codes::UNKNOWN_ITEM,
+                    format!("unknown item `{word}`"),
+                    span,
+                    "expected an item keyword",
+                );
                 match closest_name(word, keywords) {
                     Some(near) => d.with_help(format!("did you mean `{near}`?")),
                     None => d.with_help(format!("items start with one of {}", keywords_list())),
                 }
             }
             Tok::Error => return,
-            other => Diagnostic::new(codes::UNKNOWN_ITEM, format!("expected an item, found `{other}`"), span, "expected an item keyword")
-                .with_help(format!("items start with one of {}", keywords_list())),
+            other => Diagnostic::new(
+                codes::UNKNOWN_ITEM,
+                format!("expected an item, found `{other}`"),
+                span,
+                "expected an item keyword",
+            )
+            .with_help(format!("items start with one of {}", keywords_list())),
         };
         self.diagnostics.push(d);
     }
@@ -401,7 +483,9 @@ impl<'t> Driver<'t, 't> {
             }
             self.pos += 1;
             let Some(next) = self.tok(self.pos) else { return };
-            if self.at_line_start(self.pos) && !matches!(next, Tok::Newline | Tok::Semi | Tok::Doc(_)) {
+            if self.at_line_start(self.pos)
+                && !matches!(next, Tok::Newline | Tok::Semi | Tok::Doc(_))
+            {
                 let keyword = matches!(next, Tok::Ident(w) if BLOCK_KEYWORDS.contains(&w) || LINE_KEYWORDS.contains(&w));
                 if depth == 0 || keyword {
                     return;
@@ -412,7 +496,9 @@ impl<'t> Driver<'t, 't> {
 
     /// The end of the line item starting at `from`: the next separator.
     fn line_end(&self, from: usize) -> usize {
-        (from..self.toks.len()).find(|&i| matches!(self.tok(i), Some(Tok::Newline | Tok::Semi))).unwrap_or(self.toks.len())
+        (from..self.toks.len())
+            .find(|&i| matches!(self.tok(i), Some(Tok::Newline | Tok::Semi)))
+            .unwrap_or(self.toks.len())
     }
 
     fn item(&mut self, g: &Grammar<'t>, word: &str, doc: Option<Doc>, items: &mut Vec<Item>) {
@@ -432,8 +518,13 @@ impl<'t> Driver<'t, 't> {
             }
             "time" if self.next_non_newline(self.pos + 1) == Some(Tok::LBrace) => {
                 self.diagnostics.push(
-                    Diagnostic::new(codes::UNEXPECTED_TOKEN, "`time` declares one variable, not a block", kw, "expected a name after `time`")
-                        .with_help("write `time t [s]: start 0, end 10`"),
+                    Diagnostic::new(
+                        codes::UNEXPECTED_TOKEN,
+                        "`time` declares one variable, not a block",
+                        kw,
+                        "expected a name after `time`",
+                    )
+                    .with_help("write `time t [s]: start 0, end 10`"),
                 );
                 let block = self.block(&g.var_decl, word, doc);
                 items.extend(block.entries.into_iter().map(Item::Time));
@@ -443,8 +534,13 @@ impl<'t> Driver<'t, 't> {
                 let decl = self.entry(&g.var_decl, self.pos + 1..end);
                 if decl.is_none() && self.pos + 1 == end {
                     self.diagnostics.push(
-                        Diagnostic::new(codes::UNEXPECTED_TOKEN, "`time` needs a variable", kw, "expected a name after `time`")
-                            .with_help("write `time t [s]: start 0, end 10`"),
+                        Diagnostic::new(
+                            codes::UNEXPECTED_TOKEN,
+                            "`time` needs a variable",
+                            kw,
+                            "expected a name after `time`",
+                        )
+                        .with_help("write `time t [s]: start 0, end 10`"),
                     );
                 }
                 self.pos = end;
@@ -475,7 +571,12 @@ impl<'t> Driver<'t, 't> {
     }
 
     /// `keyword { entry ... }` with the keyword at `self.pos`.
-    fn block<T: HasDoc>(&mut self, parser: &P<'t, Option<T>>, word: &str, doc: Option<Doc>) -> Block<T> {
+    fn block<T: HasDoc>(
+        &mut self,
+        parser: &P<'t, Option<T>>,
+        word: &str,
+        doc: Option<Doc>,
+    ) -> Block<T> {
         let kw = self.span(self.pos);
         self.pos += 1;
         let mut open = self.pos;
@@ -492,12 +593,17 @@ impl<'t> Driver<'t, 't> {
                     None => break None,
                     Some(Tok::RBrace) => break Some(i),
                     // A line of `///` belongs to the entry below it.
-                    Some(Tok::Newline) if self.toks[entry_start..i].iter().all(|t| matches!(t.0, Tok::Doc(_))) && entry_start < i => {}
+                    Some(Tok::Newline)
+                        if self.toks[entry_start..i].iter().all(|t| matches!(t.0, Tok::Doc(_)))
+                            && entry_start < i => {}
                     Some(Tok::Newline | Tok::Semi) => {
                         ranges.push(entry_start..i);
                         entry_start = i + 1;
                     }
-                    Some(Tok::Ident(w)) if starts_item(self.toks, i) && (BLOCK_KEYWORDS.contains(&w) || self.at_line_start(i)) => {
+                    Some(Tok::Ident(w))
+                        if starts_item(self.toks, i)
+                            && (BLOCK_KEYWORDS.contains(&w) || self.at_line_start(i)) =>
+                    {
                         break None
                     }
                     Some(_) => {}
@@ -525,8 +631,13 @@ impl<'t> Driver<'t, 't> {
             end_span = self.span(self.pos.saturating_sub(1).max(open));
         } else {
             let end = self.line_end(self.pos);
-            let mut d = Diagnostic::new(codes::MISSING_BLOCK, format!("expected `{{` after `{word}`"), kw, format!("`{word}` lists its entries in braces"))
-                .with_help(format!("write `{word} {{ ... }}` with one entry per line"));
+            let mut d = Diagnostic::new(
+                codes::MISSING_BLOCK,
+                format!("expected `{{` after `{word}`"),
+                kw,
+                format!("`{word}` lists its entries in braces"),
+            )
+            .with_help(format!("write `{word} {{ ... }}` with one entry per line"));
             if let Some(found) = self.tok(self.pos).filter(|_| self.pos < end) {
                 d = d.with_label(self.span(self.pos), format!("found `{found}`"));
             }
@@ -567,7 +678,8 @@ impl<'t> Driver<'t, 't> {
 }
 
 fn keywords_list() -> String {
-    let all: Vec<String> = LINE_KEYWORDS.iter().chain(BLOCK_KEYWORDS).map(|k| format!("`{k}`")).collect();
+    let all: Vec<String> =
+        LINE_KEYWORDS.iter().chain(BLOCK_KEYWORDS).map(|k| format!("`{k}`")).collect();
     all.join(", ")
 }
 
@@ -581,8 +693,13 @@ fn too_deep(slice: &[Spanned<'_>]) -> Option<Diagnostic> {
                 depth += 1;
                 if depth > MAX_NESTING {
                     return Some(
-                        Diagnostic::new(codes::NESTING_TOO_DEEP, "expression is nested too deeply", sp(*span), format!("more than {MAX_NESTING} levels of parentheses"))
-                            .with_help("split the expression with a `const` or an `fn` helper"),
+                        Diagnostic::new(
+                            codes::NESTING_TOO_DEEP,
+                            "expression is nested too deeply",
+                            sp(*span),
+                            format!("more than {MAX_NESTING} levels of parentheses"),
+                        )
+                        .with_help("split the expression with a `const` or an `fn` helper"),
                     );
                 }
             }
@@ -591,8 +708,13 @@ fn too_deep(slice: &[Spanned<'_>]) -> Option<Diagnostic> {
                 operators += 1;
                 if operators > MAX_OPERATORS {
                     return Some(
-                        Diagnostic::new(codes::NESTING_TOO_DEEP, "expression is too long", sp(*span), format!("more than {MAX_OPERATORS} operators in one entry"))
-                            .with_help("split the expression with a `const` or an `fn` helper"),
+                        Diagnostic::new(
+                            codes::NESTING_TOO_DEEP,
+                            "expression is too long",
+                            sp(*span),
+                            format!("more than {MAX_OPERATORS} operators in one entry"),
+                        )
+                        .with_help("split the expression with a `const` or an `fn` helper"),
                     );
                 }
             }
@@ -643,18 +765,39 @@ fn convert_error(error: &Rich<'_, Tok<'_>, SimpleSpan>, slice: &[Spanned<'_>]) -
         Some(found) => {
             let span = sp(*error.span());
             if only_expression {
-                Diagnostic::new(codes::EXPECTED_EXPRESSION, format!("expected an expression, found `{found}`"), span, "expected an expression here")
+                Diagnostic::new(
+                    codes::EXPECTED_EXPRESSION,
+                    format!("expected an expression, found `{found}`"),
+                    span,
+                    "expected an expression here",
+                )
             } else {
-                Diagnostic::new(codes::UNEXPECTED_TOKEN, format!("unexpected `{found}`"), span, format!("expected {list}"))
+                Diagnostic::new(
+                    codes::UNEXPECTED_TOKEN,
+                    format!("unexpected `{found}`"),
+                    span,
+                    format!("expected {list}"),
+                )
             }
         }
         None => {
-            let (last, last_span) = slice.last().map_or((Tok::Error, SimpleSpan::from(0..0)), |t| *t);
+            let (last, last_span) =
+                slice.last().map_or((Tok::Error, SimpleSpan::from(0..0)), |t| *t);
             let span = sp(last_span);
             if only_expression {
-                Diagnostic::new(codes::EXPECTED_EXPRESSION, format!("expected an expression after `{last}`"), span, "an expression must follow this")
+                Diagnostic::new(
+                    codes::EXPECTED_EXPRESSION,
+                    format!("expected an expression after `{last}`"),
+                    span,
+                    "an expression must follow this",
+                )
             } else {
-                Diagnostic::new(codes::UNEXPECTED_TOKEN, format!("expected {list} after `{last}`"), span, "the entry ends after this")
+                Diagnostic::new(
+                    codes::UNEXPECTED_TOKEN,
+                    format!("expected {list} after `{last}`"),
+                    span,
+                    "the entry ends after this",
+                )
             }
         }
     }
