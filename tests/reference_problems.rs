@@ -217,12 +217,17 @@ fn a_finer_mesh_moves_the_optimum_toward_the_reference() {
 #[test]
 fn particle_steering_follows_the_linear_tangent_law() {
     let scratch = temp_dir("particle_steering");
-    let (doc, solved, _) = try_solve_json(&format!("{FIXTURES}/particle_steering.costate"), 100, &scratch);
+    let (doc, solved, _) =
+        try_solve_json(&format!("{FIXTURES}/particle_steering.costate"), 100, &scratch);
     let _ = std::fs::remove_dir_all(&scratch);
     if !solved {
         // The shape can only be judged on a solution; while the solve stalls, the fixture must
         // be listed as not yet solved (checked here so the list cannot silently go stale).
-        assert!(NOT_YET_SOLVED.contains(&"particle_steering"), "particle steering: {}", doc["status"]);
+        assert!(
+            NOT_YET_SOLVED.contains(&"particle_steering"),
+            "particle steering: {}",
+            doc["status"]
+        );
         return;
     }
     let times = numbers(&doc["time"]["values"], "time.values");
