@@ -123,3 +123,51 @@ fn fmt_refuses_a_file_with_syntax_errors_and_keeps_it() {
     assert_eq!(out.status.code(), Some(1));
     assert_eq!(std::fs::read_to_string(&file).unwrap(), broken);
 }
+
+#[test]
+fn every_example_solves_and_meets_its_expectations() {
+    let out = costate(&["test", "examples"]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{stdout}{}", text(&out.stderr));
+    assert!(stdout.contains("3 passed, 0 failed"), "{stdout}");
+}
+
+#[test]
+fn solve_writes_the_solution_files_and_a_summary() {
+    let dir = temp_dir("solve");
+    let out =
+        costate(&["solve", "examples/crane_transfer.costate", "--out", dir.to_str().unwrap()]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{stdout}{}", text(&out.stderr));
+    assert!(stdout.contains("status      solved"), "{stdout}");
+    assert!(text(&out.stderr).contains("stationarity"), "the iteration log goes to stderr");
+    let doc: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(dir.join("crane_transfer.solution.json")).unwrap(),
+    )
+    .unwrap();
+    assert_eq!(doc["solved"], true);
+    assert_eq!(doc["states"].as_array().unwrap().len(), 4);
+    let x = &doc["states"][0]["values"];
+    assert_eq!(x.as_array().unwrap().len(), 61, "one value per node at 60 intervals");
+    assert!((x[60].as_f64().unwrap() - 12.0).abs() < 1e-6, "the load ends at 12 m");
+    let csv = std::fs::read_to_string(dir.join("crane_transfer.csv")).unwrap();
+    assert!(csv.starts_with("t [s],x [m],v [m/s],theta [rad],omega [rad/s],a [m/s^2]\n"), "{csv}");
+    assert_eq!(csv.lines().count(), 62);
+}
+
+#[test]
+fn a_function_undefined_at_the_guess_is_reported_on_its_line() {
+    let dir = temp_dir("nan");
+    let file = dir.join("nan.costate");
+    std::fs::write(
+        &file,
+        "problem nan\ntime t [s]: start 0, end 1\nstate {\n  x: start -1, end free\n}\ncontrol { u: in -1 .. 1 }\ndynamics {\n  x' = sqrt(x) + u\n}\ncost { minimize integral(u^2) }\n",
+    )
+    .unwrap();
+    let out =
+        costate(&["solve", file.to_str().unwrap(), "--quiet", "--out", dir.to_str().unwrap()]);
+    let stderr = text(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{}{stderr}", text(&out.stdout));
+    assert!(stderr.contains("E1001"), "{stderr}");
+    assert!(stderr.contains("nan.costate:8:"), "points at the dynamics line: {stderr}");
+}
