@@ -32,7 +32,12 @@ fn read(path: &Path) -> String {
 fn from_table(table: &[Code], origin: &'static str) -> Vec<Entry> {
     table
         .iter()
-        .map(|c| Entry { id: c.id.to_string(), name: c.name.to_string(), severity: c.severity, origin })
+        .map(|c| Entry {
+            id: c.id.to_string(),
+            name: c.name.to_string(),
+            severity: c.severity,
+            origin,
+        })
         .collect()
 }
 
@@ -65,14 +70,23 @@ fn cli_codes(text: &str) -> Vec<Entry> {
             assert!(literal.contains("Severity::Error"), "no severity in `{literal}`");
             Severity::Error
         };
-        out.push(Entry { id: ids[0].to_string(), name: names[0].to_string(), severity, origin: "costate-cli" });
+        out.push(Entry {
+            id: ids[0].to_string(),
+            name: names[0].to_string(),
+            severity,
+            origin: "costate-cli",
+        });
     }
     // The literal parse and the plain `id:`/`name:` scan must agree, so that a code written in
     // another form (a helper function, say) is not silently missed.
     let ids = quoted_after(text, "id");
     let names = quoted_after(text, "name");
     assert_eq!(ids.len(), out.len(), "codes.rs has `id:` strings outside `Code {{ .. }}` literals");
-    assert_eq!(names.len(), out.len(), "codes.rs has `name:` strings outside `Code {{ .. }}` literals");
+    assert_eq!(
+        names.len(),
+        out.len(),
+        "codes.rs has `name:` strings outside `Code {{ .. }}` literals"
+    );
     out
 }
 
@@ -161,20 +175,28 @@ fn every_code_has_a_section_with_severity_and_example() {
         assert!(body.contains("```costate\n"), "section `{heading}` needs a ```costate example");
         assert!(body.contains("Fix"), "section `{heading}` needs a fix");
     }
-    assert!(missing.is_empty(), "docs/diagnostics.md lacks these headings:\n{}", missing.join("\n"));
+    assert!(
+        missing.is_empty(),
+        "docs/diagnostics.md lacks these headings:\n{}",
+        missing.join("\n")
+    );
 }
 
 #[test]
 fn the_doc_has_no_section_for_an_unknown_code() {
     let doc = doc();
-    let known: BTreeSet<String> = all_codes().into_iter().map(|e| format!("{} {}", e.id, e.name)).collect();
+    let known: BTreeSet<String> =
+        all_codes().into_iter().map(|e| format!("{} {}", e.id, e.name)).collect();
     let mut seen = BTreeSet::new();
     for (heading, _) in sections(&doc) {
         let first = heading.split_whitespace().next().unwrap_or_default();
         if !looks_like_id(first) {
             continue;
         }
-        assert!(known.contains(&heading), "docs/diagnostics.md documents `### {heading}`, which no crate defines");
+        assert!(
+            known.contains(&heading),
+            "docs/diagnostics.md documents `### {heading}`, which no crate defines"
+        );
         assert!(seen.insert(heading.clone()), "`### {heading}` appears twice");
     }
 }

@@ -11,6 +11,10 @@
 //! - [`settings`]: the SQP's settings;
 //! - [`sqp`]: the SQP method as an argmin solver, its statuses, results and log rows.
 
+// Numeric kernels walk several parallel arrays by one index; an iterator over one of them
+// would hide that symmetry. Observer and evaluation signatures are spelled out where used.
+#![allow(clippy::needless_range_loop, clippy::type_complexity)]
+
 pub mod hessian;
 pub mod integrate;
 pub mod nlp;

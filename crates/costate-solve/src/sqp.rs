@@ -707,7 +707,7 @@ fn bound_multipliers(s: &Setup, y: &[f64], lg: &[f64]) -> Vec<f64> {
             let want = -lg[j];
             let at_lo = y[j] == s.yl[j];
             let at_hi = y[j] == s.yu[j];
-            if (at_lo && at_hi) || (at_lo && want < 0.0) || (at_hi && want > 0.0) {
+            if (at_lo && (at_hi || want < 0.0)) || (at_hi && want > 0.0) {
                 want
             } else {
                 0.0
@@ -925,9 +925,8 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
     let near = |a: f64, b: f64| (a - b).abs() <= 1e-6 * b.abs().max(1.0);
     let mut rows = Vec::new();
     for i in 0..s.m {
-        if !s.inequality[i] {
-            rows.push((i, p.c[i] - s.cu[i]));
-        } else if wk.lambda[i] > 0.0 && s.cu[i].is_finite() && near(p.c[i], s.cu[i]) {
+        let active_upper = wk.lambda[i] > 0.0 && s.cu[i].is_finite() && near(p.c[i], s.cu[i]);
+        if !s.inequality[i] || active_upper {
             rows.push((i, p.c[i] - s.cu[i]));
         } else if wk.lambda[i] < 0.0 && s.cl[i].is_finite() && near(p.c[i], s.cl[i]) {
             rows.push((i, p.c[i] - s.cl[i]));
@@ -999,7 +998,7 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
     let cv = convexify(&mut t, start, st.hessian_shift_growth, st.hessian_shift_max, false);
     wk.last_shift = cv.shift;
     wk.last_weight = weight;
-    let augmentation = (weight > 0.0).then(|| Augmentation { weight, rows });
+    let augmentation = (weight > 0.0).then_some(Augmentation { weight, rows });
     ConvexModel { hessian: t, shift: cv.shift, augmentation }
 }
 
