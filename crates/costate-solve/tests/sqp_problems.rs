@@ -2,6 +2,7 @@
 //! BFGS. Unless stated otherwise, solutions are compared with tolerance 1e-6: the solver stops
 //! when the scaled KKT residuals are below 1e-8, and on these well-conditioned problems the
 //! distance to the optimum is of that order divided by the curvature (>= 0.1 here).
+#![allow(clippy::needless_range_loop)] // test problems index parallel arrays
 
 mod support;
 
