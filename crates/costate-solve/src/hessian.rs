@@ -217,7 +217,7 @@ mod tests {
 
     #[test]
     fn secant_condition_holds_per_block_and_blocks_stay_uncoupled() {
-        let mut bfgs = BlockBfgs::new(4, &[0..2]);
+        let mut bfgs = BlockBfgs::new(4, std::slice::from_ref(&(0..2)));
         assert_eq!(bfgs.blocks(), &[0..2, 2..4]);
         let s = [1.0, 0.5, -0.3, 0.2];
         let y = [2.0, 0.7, -0.9, 0.4];
