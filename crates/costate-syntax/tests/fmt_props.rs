@@ -283,27 +283,53 @@ fn problem_file() -> impl Strategy<Value = String> {
         })
 }
 
-proptest! {
-    #![proptest_config(ProptestConfig {
-        cases: 200,
-        failure_persistence: None,
-        ..ProptestConfig::default()
-    })]
+/// The property for one generated file.
+fn check_file(source: &str) -> Result<(), TestCaseError> {
+    let original = costate_syntax::parse(source);
+    prop_assert!(
+        original.diagnostics.is_empty(),
+        "generator produced invalid text:\n{source}\n{:#?}",
+        original.diagnostics
+    );
 
-    #[test]
-    fn formatting_is_idempotent_and_preserves_the_parse(source in problem_file()) {
-        let original = costate_syntax::parse(&source);
-        prop_assert!(original.diagnostics.is_empty(),
-            "generator produced invalid text:\n{source}\n{:#?}", original.diagnostics);
+    let formatted = format_file(&original.file, source);
+    let reparsed = costate_syntax::parse(&formatted);
+    prop_assert!(
+        reparsed.diagnostics.is_empty(),
+        "formatted text has diagnostics:\n{formatted}\n{:#?}",
+        reparsed.diagnostics
+    );
+    prop_assert_eq!(
+        strip_layout(&reparsed.file),
+        strip_layout(&original.file),
+        "formatting changed the tree:\n--- input ---\n{}\n--- formatted ---\n{}",
+        source,
+        formatted
+    );
 
-        let formatted = format_file(&original.file, &source);
-        let reparsed = costate_syntax::parse(&formatted);
-        prop_assert!(reparsed.diagnostics.is_empty(),
-            "formatted text has diagnostics:\n{formatted}\n{:#?}", reparsed.diagnostics);
-        prop_assert_eq!(strip_layout(&reparsed.file), strip_layout(&original.file),
-            "formatting changed the tree:\n--- input ---\n{}\n--- formatted ---\n{}", source, formatted);
+    let again = format_file(&reparsed.file, &formatted);
+    prop_assert_eq!(again, formatted);
+    Ok(())
+}
 
-        let again = format_file(&reparsed.file, &formatted);
-        prop_assert_eq!(again, formatted);
+#[test]
+fn formatting_is_idempotent_and_preserves_the_parse() {
+    // Generating nested strategies in an unoptimised build needs more than the 2 MiB stack of
+    // a test thread, so the runner gets a thread of its own.
+    let runner = std::thread::Builder::new()
+        .stack_size(64 << 20)
+        .spawn(|| {
+            let config = ProptestConfig {
+                cases: 200,
+                failure_persistence: None,
+                ..ProptestConfig::default()
+            };
+            let mut runner = proptest::test_runner::TestRunner::new(config);
+            runner.run(&problem_file(), |source| check_file(&source))
+        })
+        .expect("spawn the property-test thread");
+    match runner.join().expect("property-test thread panicked") {
+        Ok(()) => {}
+        Err(e) => panic!("{e}"),
     }
 }

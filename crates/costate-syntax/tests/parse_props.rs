@@ -121,7 +121,7 @@ fn an_empty_file_reports_the_missing_header_only() {
 fn the_deepest_accepted_nesting_parses_within_a_test_thread_stack() {
     // The accepted limit must parse (and the tree drop) within the 2 MiB stack of a test
     // thread in a debug build.
-    let nested = format!("problem p\nconst {{ a = {}1{} }}\n", "(".repeat(32), ")".repeat(32));
+    let nested = format!("problem p\nconst {{ a = {}1{} }}\n", "(".repeat(16), ")".repeat(16));
     let parse = costate_syntax::parse(&nested);
     assert!(parse.diagnostics.is_empty(), "{:?}", parse.diagnostics);
 }
