@@ -84,7 +84,7 @@ fn json_format_for_machines() {
     let d = &doc["files"][0]["diagnostics"][0];
     assert_eq!(d["severity"], "error");
     assert_eq!(d["span"]["from"]["line"], 4);
-    assert_eq!(doc["errors"].as_u64().unwrap() >= 1, true);
+    assert!(doc["errors"].as_u64().unwrap() >= 1);
 }
 
 #[test]

@@ -9,4 +9,17 @@ pub const EVALUATION_FAILED: Code =
 pub const CONSTRAINT_VIOLATED: Code =
     Code { id: "E1002", name: "constraint-violated", severity: Severity::Error };
 
-pub const ALL: &[Code] = &[EVALUATION_FAILED, CONSTRAINT_VIOLATED];
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Every code the CLI raises has its section in the user's reference of diagnostics.
+    #[test]
+    fn every_cli_code_is_documented() {
+        let doc = include_str!("../../../docs/diagnostics.md");
+        for code in [EVALUATION_FAILED, CONSTRAINT_VIOLATED] {
+            let heading = format!("{} {}", code.id, code.name);
+            assert!(doc.contains(&heading), "docs/diagnostics.md lacks a section `{heading}`");
+        }
+    }
+}

@@ -23,8 +23,10 @@ pub struct Overrides {
 
 pub fn ocp_settings(loaded: &Loaded, overrides: &Overrides) -> OcpSettings {
     let s = &loaded.lowered.settings;
-    let mut settings = OcpSettings::default();
-    settings.intervals = overrides.intervals.unwrap_or(s.intervals);
+    let mut settings = OcpSettings {
+        intervals: overrides.intervals.unwrap_or(s.intervals),
+        ..OcpSettings::default()
+    };
     settings.integrator.method = match s.integrator {
         Integrator::Rk4 => Method::Rk4,
         Integrator::Radau => Method::RadauIIA,

@@ -41,6 +41,11 @@ pub fn run(args: &SolveArgs, color: bool) -> u8 {
         },
         None => None,
     };
+    if !args.quiet {
+        for d in &loaded.warnings {
+            eprint!("{}", render::terminal(&loaded.path, &loaded.source, d, color));
+        }
+    }
     let solution = match run::solve(&loaded, &args.overrides, warm.as_ref(), args.quiet) {
         Ok(s) => s,
         Err(e) => {

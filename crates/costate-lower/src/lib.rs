@@ -53,7 +53,7 @@ pub enum Target {
     Cost,
     /// An endpoint function (inputs `[t0, tf, x0, xf, p, q]` as in [`Ocp::endpoint_layout`])
     /// with one output, in SI.
-    Expr(Function),
+    Expr(Box<Function>),
 }
 
 /// How close the found value must be to the expected one.
@@ -135,7 +135,7 @@ fn build(file: &ast::File, a: &Analysis, lw: &mut expr::Lowerer<'_>) -> Option<L
     let horizon = match vars::horizon(time) {
         Ok(h) => Some(h),
         Err(d) => {
-            lw.diags.push(d);
+            lw.diags.push(*d);
             None
         }
     };
@@ -250,7 +250,11 @@ fn build(file: &ast::File, a: &Analysis, lw: &mut expr::Lowerer<'_>) -> Option<L
             ExpectTarget::Expr(e) => {
                 let node = lw.lower(e, expr::Cx::Endpoint { integrals: false });
                 let f = node.and_then(|n| compile(lw, true, &[n], x.target_span));
-                (f.map(Target::Expr), show(e), expectation_unit(a, e, x.display_scale))
+                (
+                    f.map(|f| Target::Expr(Box::new(f))),
+                    show(e),
+                    expectation_unit(a, e, x.display_scale),
+                )
             }
         };
         let Some(target) = target else {

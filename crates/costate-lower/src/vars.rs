@@ -91,19 +91,21 @@ pub(crate) fn var_source(s: &Symbol) -> VarSource {
 }
 
 /// The horizon from the independent variable's attributes; see the module docs.
-pub(crate) fn horizon(time: &Symbol) -> Result<Horizon, Diagnostic> {
+pub(crate) fn horizon(time: &Symbol) -> Result<Horizon, Box<Diagnostic>> {
     let a = &time.attrs;
     let start = match a.start {
         None => 0.0,
         Some(Endpoint::Fixed(v)) => v,
         Some(Endpoint::Free | Endpoint::Range(_)) => {
-            return Err(Diagnostic::new(
-                codes::START_TIME_NOT_FIXED,
-                format!("the start of `{}` must be a fixed value", time.name),
-                time.decl_span,
-                "the horizon starts here",
-            )
-            .with_help(format!("write `start 0` (or another number) for `{}`", time.name)));
+            return Err(Box::new(
+                Diagnostic::new(
+                    codes::START_TIME_NOT_FIXED,
+                    format!("the start of `{}` must be a fixed value", time.name),
+                    time.decl_span,
+                    "the horizon starts here",
+                )
+                .with_help(format!("write `start 0` (or another number) for `{}`", time.name)),
+            ));
         }
     };
     let unit = time.unit.as_ref().map_or(1.0, |u| u.scale);
@@ -112,13 +114,15 @@ pub(crate) fn horizon(time: &Symbol) -> Result<Horizon, Diagnostic> {
         Some(Endpoint::Free) => Bounds { lo: start, hi: f64::INFINITY },
         Some(Endpoint::Range(i)) => Bounds { lo: i.lo.max(start), hi: i.hi },
         None => {
-            return Err(Diagnostic::new(
-                codes::INCONSISTENT_ANALYSIS,
-                format!("cannot lower the horizon: `{}` has no `end`", time.name),
-                time.decl_span,
-                "no end",
-            )
-            .with_help("the checker should have reported this; this is a bug in costate, please report it with the file"));
+            return Err(Box::new(
+                Diagnostic::new(
+                    codes::INCONSISTENT_ANALYSIS,
+                    format!("cannot lower the horizon: `{}` has no `end`", time.name),
+                    time.decl_span,
+                    "no end",
+                )
+                .with_help("the checker should have reported this; this is a bug in costate, please report it with the file"),
+            ));
         }
     };
     let guess = a.guess.unwrap_or(match (bounds.lo.is_finite(), bounds.hi.is_finite()) {

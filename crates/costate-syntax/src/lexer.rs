@@ -186,11 +186,11 @@ impl Lexer<'_> {
     fn eat_number_junk(&mut self) {
         loop {
             let b = self.peek(0);
-            if b.is_ascii_alphanumeric() || b == b'_' || (b == b'.' && self.peek(1) != b'.') {
-                self.pos += 1;
-            } else if (b == b'+' || b == b'-')
-                && matches!(self.bytes.get(self.pos.wrapping_sub(1)), Some(b'e' | b'E'))
-            {
+            let word_part =
+                b.is_ascii_alphanumeric() || b == b'_' || (b == b'.' && self.peek(1) != b'.');
+            let exponent_sign = (b == b'+' || b == b'-')
+                && matches!(self.bytes.get(self.pos.wrapping_sub(1)), Some(b'e' | b'E'));
+            if word_part || exponent_sign {
                 self.pos += 1;
             } else {
                 break;

@@ -111,11 +111,13 @@ fn unit_from_tokens(
     open: Span,
     body: &[(Tok<'_>, SimpleSpan)],
     close: Span,
-) -> Result<UnitExpr, Diagnostic> {
+) -> Result<UnitExpr, Box<Diagnostic>> {
     let span = open.to(close);
     let invalid = |at: Span, label: &str| {
-        Diagnostic::new(codes::INVALID_UNIT, "invalid unit", at, label)
-            .with_help("write units like `[m]`, `[m/s^2]`, `[kg*m^2]`, `[1/s]` or `[1]`")
+        Box::new(
+            Diagnostic::new(codes::INVALID_UNIT, "invalid unit", at, label)
+                .with_help("write units like `[m]`, `[m/s^2]`, `[kg*m^2]`, `[1/s]` or `[1]`"),
+        )
     };
     if body.is_empty() {
         return Err(invalid(
@@ -190,6 +192,10 @@ fn unit_from_tokens(
     Ok(UnitExpr { factors, span })
 }
 
+/// A declaration's name, its optional `[unit]` (inner `None` when the unit was malformed) and
+/// its optional attribute list, as the parser produces them.
+type DeclParts = ((Ident, Option<Option<UnitExpr>>), Option<Vec<Attr>>);
+
 fn unit<'a>() -> impl Parser<'a, In<'a>, Option<UnitExpr>, Ex<'a>> + Clone {
     let inner = any()
         .filter(|t: &Tok| *t != Tok::RBracket)
@@ -200,7 +206,7 @@ fn unit<'a>() -> impl Parser<'a, In<'a>, Option<UnitExpr>, Ex<'a>> + Clone {
         |((open, body), close), e| match unit_from_tokens(open, &body, close) {
             Ok(u) => Some(u),
             Err(d) => {
-                report(e, d);
+                report(e, *d);
                 None
             }
         },
@@ -456,7 +462,7 @@ pub(crate) fn grammar<'a>() -> Grammar<'a> {
     let var_decl = ident()
         .then(unit().or_not())
         .then(just(Tok::Colon).ignore_then(attributes(expr.clone())).or_not())
-        .map(|((name, unit), attrs): ((Ident, Option<Option<UnitExpr>>), Option<Vec<Attr>>)| {
+        .map(|((name, unit), attrs): DeclParts| {
             let unit = unit.flatten();
             let attrs = attrs.unwrap_or_default();
             let mut span = unit.as_ref().map_or(name.span, |u| name.span.to(u.span));
