@@ -89,11 +89,13 @@ export async function activate(context: vscode.ExtensionContext): Promise<void> 
   context.subscriptions.push(
     output,
     panels,
-    vscode.commands.registerCommand("costate.showSolution", async (uri?: vscode.Uri) => {
-      // From the editor title the menu passes the file; from the palette, use the active editor.
-      const target = uri instanceof vscode.Uri ? uri : vscode.window.activeTextEditor?.document.uri;
+    vscode.commands.registerCommand("costate.showSolution", async (arg?: unknown) => {
+      // The editor title menu passes the file's Uri; a server code lens may pass a URI string;
+      // from the palette there is no argument and the active editor decides.
+      const given = arg instanceof vscode.Uri ? arg : typeof arg === "string" ? vscode.Uri.parse(arg) : undefined;
       const document = vscode.window.activeTextEditor?.document;
-      if (!target || (!(uri instanceof vscode.Uri) && document?.languageId !== "costate")) {
+      const target = given ?? (document?.languageId === "costate" ? document.uri : undefined);
+      if (!target) {
         await vscode.window.showInformationMessage("costate: open a .costate file to show its solution.");
         return;
       }
