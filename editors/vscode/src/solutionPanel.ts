@@ -72,8 +72,9 @@ export class SolutionPanels implements vscode.Disposable {
     }
     this.draw(panel, first.doc);
     if (first.doc === null) {
-      // The server may be solving right now (a file just opened or saved): keep asking a while.
-      await this.poll(panel, generation);
+      // A save just before the panel opened may still be solving: ask quietly for a few seconds.
+      // Later saves start their own poll.
+      await this.poll(panel, generation, "", [500, 1000, 2000, 3000, 3000]);
     }
   }
 
@@ -87,7 +88,7 @@ export class SolutionPanels implements vscode.Disposable {
       return;
     }
     const generation = ++panel.generation;
-    await this.poll(panel, generation);
+    await this.poll(panel, generation, "Waiting for the solve that follows the save…", retryDelays());
   }
 
   dispose(): void {
@@ -96,11 +97,13 @@ export class SolutionPanels implements vscode.Disposable {
     }
   }
 
-  private async poll(panel: Panel, generation: number): Promise<void> {
+  private async poll(panel: Panel, generation: number, notice: string, delays: number[]): Promise<void> {
     // Compare with what is on screen rather than fetching a baseline first: a small problem may
     // already be solved again by the time the first request goes out.
     const baseline = panel.shown;
-    this.draw(panel, panel.doc, "Waiting for the solve that follows the save…");
+    if (notice) {
+      this.draw(panel, panel.doc, notice);
+    }
     const result = await pollForChange<unknown>({
       fetch: async () => {
         const answer = await this.request(panel);
@@ -110,16 +113,16 @@ export class SolutionPanels implements vscode.Disposable {
         return answer.doc;
       },
       isNew: (value) => value !== null && fingerprint(value) !== baseline,
-      delays: retryDelays(),
+      delays,
       sleep,
       cancelled: () => generation !== panel.generation,
     });
     if (result.kind === "new") {
       this.draw(panel, result.value);
-    } else if (result.kind === "unchanged") {
+    } else if (result.kind === "unchanged" && notice) {
       // Drop the waiting notice; the last solution (if any) stays on screen.
-      const notice = panel.doc === null ? "" : "No new solution arrived after the last save (a file with errors is not solved; see Problems).";
-      this.draw(panel, panel.doc, notice);
+      const after = panel.doc === null ? "" : "No new solution arrived after the last save (a file with errors is not solved; see Problems).";
+      this.draw(panel, panel.doc, after);
     }
   }
 
