@@ -3,8 +3,8 @@
 //! crates, and the document has no section for a code that does not exist.
 //!
 //! The codes come from the public `ALL` tables of the syntax, check and lower crates and from the
-//! text of the CLI's private `src/codes.rs` (solver findings), which this test reads as text
-//! because the binary crate exposes no library. This test only reads; it owns no code table.
+//! text of the driver's `src/codes.rs` (solver findings), which this test reads as text so
+//! that a code written in another form cannot slip past it. This test only reads; it owns no code table.
 
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
@@ -57,7 +57,7 @@ fn quoted_after<'a>(text: &'a str, key: &str) -> Vec<&'a str> {
 
 /// The CLI's codes, read from the text of its `src/codes.rs`: each `Code { id: "..", name: "..",
 /// severity: Severity::.. }` literal.
-fn cli_codes(text: &str) -> Vec<Entry> {
+fn driver_codes(text: &str) -> Vec<Entry> {
     let mut out = Vec::new();
     for literal in text.split("Code {").skip(1) {
         let literal = &literal[..literal.find('}').expect("unterminated `Code {` literal")];
@@ -74,7 +74,7 @@ fn cli_codes(text: &str) -> Vec<Entry> {
             id: ids[0].to_string(),
             name: names[0].to_string(),
             severity,
-            origin: "costate-cli",
+            origin: "costate-driver",
         });
     }
     // The literal parse and the plain `id:`/`name:` scan must agree, so that a code written in
@@ -91,11 +91,11 @@ fn cli_codes(text: &str) -> Vec<Entry> {
 }
 
 fn all_codes() -> Vec<Entry> {
-    let cli = read(&repo_root().join("crates/costate-cli/src/codes.rs"));
+    let cli = read(&repo_root().join("crates/costate-driver/src/codes.rs"));
     let mut all = from_table(costate_syntax::codes::ALL, "costate-syntax");
     all.extend(from_table(costate_check::codes::ALL, "costate-check"));
     all.extend(from_table(costate_lower::codes::ALL, "costate-lower"));
-    all.extend(cli_codes(&cli));
+    all.extend(driver_codes(&cli));
     all
 }
 
@@ -135,10 +135,10 @@ fn doc() -> String {
 fn the_code_tables_are_read() {
     let all = all_codes();
     // Each source contributes; an empty one means the extraction broke, not that it has no codes.
-    for origin in ["costate-syntax", "costate-check", "costate-lower", "costate-cli"] {
+    for origin in ["costate-syntax", "costate-check", "costate-lower", "costate-driver"] {
         assert!(all.iter().any(|e| e.origin == origin), "no codes read from {origin}");
     }
-    let cli = cli_codes(&read(&repo_root().join("crates/costate-cli/src/codes.rs")));
+    let cli = driver_codes(&read(&repo_root().join("crates/costate-driver/src/codes.rs")));
     assert!(cli.iter().all(|e| e.id.starts_with("E10")), "solver findings are E10xx: {cli:?}");
 }
 

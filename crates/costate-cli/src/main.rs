@@ -4,12 +4,10 @@
 //! It holds no language or numeric logic of its own.
 
 mod check_cmd;
-mod codes;
 mod files;
 mod fmt_cmd;
 mod pipeline;
 mod render;
-mod report;
 mod run;
 mod solve_cmd;
 mod test_cmd;
@@ -82,6 +80,8 @@ enum Command {
         /// Files or folders (searched recursively for `*.costate`); default: the current folder.
         paths: Vec<PathBuf>,
     },
+    /// Run the language server over standard input and output (for editors).
+    Lsp,
 }
 
 #[derive(Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -109,7 +109,7 @@ fn main() -> ExitCode {
         Command::Check { files, format } => check_cmd::run(&files, format, color),
         Command::Fmt { files, check } => fmt_cmd::run(&files, check),
         Command::Solve { file, intervals, out, format, quiet, warm } => {
-            let overrides = run::Overrides { intervals: intervals.map(|n| n as usize) };
+            let overrides = costate_driver::Overrides { intervals: intervals.map(|n| n as usize) };
             solve_cmd::run(
                 &solve_cmd::SolveArgs { file, overrides, out, format, quiet, warm },
                 color,
@@ -119,6 +119,13 @@ fn main() -> ExitCode {
             let paths = if paths.is_empty() { vec![PathBuf::from(".")] } else { paths };
             test_cmd::run(&paths, color)
         }
+        Command::Lsp => match costate_lsp::run_stdio() {
+            Ok(()) => exit::OK,
+            Err(e) => {
+                eprintln!("error: {e}");
+                exit::USAGE
+            }
+        },
     };
     ExitCode::from(code)
 }

@@ -6,8 +6,9 @@ use costate_solve::transcribe::Trajectory;
 use serde_json::Value;
 
 use crate::pipeline::{self, LoadError, Loaded};
-use crate::run::{self, Overrides};
-use crate::{exit, files, render, report, Format};
+use crate::run;
+use crate::{exit, files, render, Format};
+use costate_driver::{report, Overrides};
 
 pub struct SolveArgs {
     pub file: PathBuf,
@@ -53,8 +54,8 @@ pub fn run(args: &SolveArgs, color: bool) -> u8 {
             return exit::USAGE;
         }
     };
-    let intervals = run::ocp_settings(&loaded, &args.overrides).intervals;
-    for d in run::findings(&loaded, &solution) {
+    let intervals = costate_driver::ocp_settings(&loaded, &args.overrides).intervals;
+    for d in costate_driver::findings(&loaded, &solution) {
         eprint!("{}", render::terminal(&loaded.path, &loaded.source, &d, color));
     }
     let name = &loaded.lowered.source_map.problem_name;

@@ -5,9 +5,10 @@ use std::path::{Path, PathBuf};
 use costate_lower::{ExpectTolerance, Target};
 use costate_model::EndpointLayout;
 
+use crate::exit;
 use crate::pipeline::{self, LoadError, Loaded};
-use crate::run::{self, Overrides};
-use crate::{exit, report};
+use crate::run;
+use costate_driver::{report, Overrides};
 
 pub fn run(paths: &[PathBuf], color: bool) -> u8 {
     let mut files = Vec::new();
@@ -50,7 +51,7 @@ pub fn run(paths: &[PathBuf], color: bool) -> u8 {
         let status = report::status_label(&solution.status);
         let solved = report::is_solved(&solution.status);
         if !solved {
-            for d in run::findings(&loaded, &solution) {
+            for d in costate_driver::findings(&loaded, &solution) {
                 eprint!("{}", crate::render::terminal(&loaded.path, &loaded.source, &d, color));
             }
         }

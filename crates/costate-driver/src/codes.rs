@@ -1,4 +1,4 @@
-//! Diagnostic codes raised by the CLI for solver findings, documented in docs/diagnostics.md.
+//! Diagnostic codes raised for solver findings (by the CLI and the language server alike), documented in docs/diagnostics.md.
 
 use costate_syntax::{Code, Severity};
 

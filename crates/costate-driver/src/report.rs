@@ -6,7 +6,7 @@ use costate_lower::{SourceMap, VarSource};
 use costate_solve::transcribe::{OcpSolution, OcpStatus};
 use serde_json::{json, Value};
 
-use crate::pipeline::Loaded;
+use crate::Loaded;
 
 /// `value` to `digits` significant digits, without trailing zeros noise for plain numbers.
 pub fn sig(value: f64, digits: usize) -> String {
@@ -63,7 +63,7 @@ pub fn user_cost(loaded: &Loaded, solution: &OcpSolution) -> f64 {
     }
 }
 
-fn sense(map: &SourceMap) -> &'static str {
+pub fn sense(map: &SourceMap) -> &'static str {
     match map.cost.sense {
         costate_syntax::ast::Sense::Minimize => "minimize",
         costate_syntax::ast::Sense::Maximize => "maximize",

@@ -1,0 +1,51 @@
+//! costate-lsp: the costate language server (`costate lsp`), on `tower-lsp-server` and tokio.
+//!
+//! Owns the protocol: position conversion (UTF-16), incremental document sync applied in order,
+//! analysis off the async threads, solve-on-save with progress and cancellation, writing the
+//! solution files beside the problem, and the custom request `costate/solution`. Every editor
+//! feature itself is a pure function of `costate-ide`; the solve and the solution documents
+//! come from `costate-driver`, exactly as the CLI makes them.
+//!
+//! Architecture invariant: stdout is the protocol. Nothing here prints; logs go through
+//! `tracing` to stderr.
+
+#![deny(clippy::print_stdout)]
+
+mod config;
+mod convert;
+mod documents;
+mod io;
+mod server;
+mod solving;
+mod summary;
+
+pub use config::Config;
+pub use server::{Backend, SolutionParams, SOLUTION_REQUEST};
+
+use tower_lsp_server::{ClientSocket, LspService, Server};
+
+/// The service with every handler registered, including the custom request.
+pub fn service() -> (LspService<Backend>, ClientSocket) {
+    LspService::build(Backend::new).custom_method(SOLUTION_REQUEST, Backend::solution).finish()
+}
+
+/// Serve `input`/`output` until the client exits.
+pub async fn serve<I, O>(input: I, output: O)
+where
+    I: tokio::io::AsyncRead + Unpin,
+    O: tokio::io::AsyncWrite + Unpin,
+{
+    let (service, socket) = service();
+    Server::new(input, output, socket).serve(service).await;
+}
+
+/// Run the server over standard input and output (blocking), logging to stderr.
+pub fn run_stdio() -> Result<(), String> {
+    let _ = tracing_subscriber::fmt().with_writer(std::io::stderr).with_ansi(false).try_init();
+    let runtime = tokio::runtime::Builder::new_multi_thread()
+        .enable_all()
+        .build()
+        .map_err(|e| format!("cannot start the language server: {e}"))?;
+    runtime.block_on(serve(tokio::io::stdin(), tokio::io::stdout()));
+    Ok(())
+}

@@ -1,0 +1,97 @@
+-- A real editor end to end: Neovim (0.7 or newer) starts `costate lsp`, opens a problem file
+-- with an error, waits for the diagnostic, asks for hover and completion, fixes the file,
+-- saves, and waits for the solve. Everything it received is written as JSON to
+-- $COSTATE_NVIM_OUT for tests/editor_neovim.rs to check. Each wait has a timeout, and the
+-- script always writes its output and quits, so a broken server fails the test, not hangs it.
+
+local out_path = os.getenv("COSTATE_NVIM_OUT")
+local problem = os.getenv("COSTATE_NVIM_FILE")
+local costate = os.getenv("COSTATE_BIN")
+local broken_line = tonumber(os.getenv("COSTATE_NVIM_BROKEN_LINE")) -- zero-based
+local fixed_text = os.getenv("COSTATE_NVIM_FIXED_TEXT")
+
+local result = { errors = {} }
+local latest_diagnostics = nil
+local progress_end = nil
+
+local function run()
+  vim.cmd("edit " .. vim.fn.fnameescape(problem))
+  local buf = vim.api.nvim_get_current_buf()
+  local uri = vim.uri_from_bufnr(buf)
+  local client_id = vim.lsp.start_client({
+    name = "costate",
+    cmd = { costate, "lsp" },
+    root_dir = vim.fn.fnamemodify(problem, ":h"),
+    init_options = { solveOnSave = true, solveIntervals = 20 },
+    handlers = {
+      ["textDocument/publishDiagnostics"] = function(_, params)
+        latest_diagnostics = params
+      end,
+      ["$/progress"] = function(_, params)
+        if params.value.kind == "end" then
+          progress_end = params.value.message
+        end
+      end,
+    },
+  })
+  vim.lsp.buf_attach_client(buf, client_id)
+  local client = vim.lsp.get_client_by_id(client_id)
+
+  local function wait(what, condition)
+    if not vim.wait(120000, condition, 20) then
+      table.insert(result.errors, "timed out waiting for " .. what)
+      return false
+    end
+    return true
+  end
+  local function request(method, params)
+    local response, err = client.request_sync(method, params, 60000, buf)
+    if err then
+      table.insert(result.errors, method .. ": " .. tostring(err))
+      return nil
+    end
+    if response and response.err then
+      table.insert(result.errors, method .. ": " .. vim.inspect(response.err))
+    end
+    return response and response.result
+  end
+
+  wait("the first diagnostics", function()
+    return latest_diagnostics ~= nil and #latest_diagnostics.diagnostics > 0
+  end)
+  result.diagnostics_before = latest_diagnostics and latest_diagnostics.diagnostics
+
+  local line = vim.api.nvim_buf_get_lines(buf, broken_line, broken_line + 1, false)[1]
+  -- Hover on the state being differentiated, completion right after `= ` on the broken line.
+  result.hover = request("textDocument/hover", {
+    textDocument = { uri = uri },
+    position = { line = broken_line, character = 2 },
+  })
+  result.completion = request("textDocument/completion", {
+    textDocument = { uri = uri },
+    position = { line = broken_line, character = #line },
+  })
+
+  vim.api.nvim_buf_set_lines(buf, broken_line, broken_line + 1, false, { fixed_text })
+  wait("the diagnostics to clear", function()
+    return latest_diagnostics ~= nil and #latest_diagnostics.diagnostics == 0
+  end)
+  result.diagnostics_after = latest_diagnostics and latest_diagnostics.diagnostics
+  vim.cmd("write")
+  wait("the solve to finish", function()
+    return progress_end ~= nil
+  end)
+  result.progress_end = progress_end
+  result.solution = request("costate/solution", { uri = uri })
+  result.code_lens = request("textDocument/codeLens", { textDocument = { uri = uri } })
+  vim.lsp.stop_client(client_id)
+end
+
+local ok, err = pcall(run)
+if not ok then
+  table.insert(result.errors, "script error: " .. tostring(err))
+end
+local file = io.open(out_path, "w")
+file:write(vim.fn.json_encode(result))
+file:close()
+vim.cmd("qa!")
