@@ -79,8 +79,9 @@ impl Diagnostic {
     }
 }
 
-/// Suggest the candidate closest to `name` (Levenshtein distance at most a third of its length,
-/// at least 1), for "did you mean" help lines.
+/// Suggest the candidate closest to `name` (edit distance at most a third of its length, at
+/// least 1), for "did you mean" help lines. Swapped neighbouring letters (`omgea`) count as one
+/// edit, the most common typing slip.
 pub fn closest_name<'a>(
     name: &str,
     candidates: impl IntoIterator<Item = &'a str>,
@@ -95,18 +96,32 @@ pub fn closest_name<'a>(
         .map(|(_, c)| c)
 }
 
+/// Optimal string alignment distance: insertions, deletions, substitutions and transpositions
+/// of adjacent characters, each costing one.
 fn edit_distance(a: &str, b: &str) -> usize {
+    let a: Vec<char> = a.chars().collect();
     let b: Vec<char> = b.chars().collect();
-    let mut prev: Vec<usize> = (0..=b.len()).collect();
-    for (i, ca) in a.chars().enumerate() {
-        let mut cur = vec![i + 1; b.len() + 1];
-        for (j, &cb) in b.iter().enumerate() {
-            let subst = prev[j] + usize::from(ca != cb);
-            cur[j + 1] = subst.min(prev[j + 1] + 1).min(cur[j] + 1);
-        }
-        prev = cur;
+    let width = b.len() + 1;
+    let mut d = vec![0usize; (a.len() + 1) * width];
+    for (i, row) in d.chunks_mut(width).enumerate() {
+        row[0] = i;
     }
-    prev[b.len()]
+    for (j, cell) in d.iter_mut().take(width).enumerate() {
+        *cell = j;
+    }
+    for i in 1..=a.len() {
+        for j in 1..=b.len() {
+            let cost = usize::from(a[i - 1] != b[j - 1]);
+            let mut best = (d[(i - 1) * width + j] + 1)
+                .min(d[i * width + j - 1] + 1)
+                .min(d[(i - 1) * width + j - 1] + cost);
+            if i > 1 && j > 1 && a[i - 1] == b[j - 2] && a[i - 2] == b[j - 1] {
+                best = best.min(d[(i - 2) * width + j - 2] + 1);
+            }
+            d[i * width + j] = best;
+        }
+    }
+    d[a.len() * width + b.len()]
 }
 
 #[cfg(test)]
@@ -118,5 +133,8 @@ mod tests {
         assert_eq!(closest_name("omgea", ["omega", "theta", "x"]), Some("omega"));
         assert_eq!(closest_name("vx", ["v", "x", "omega"]), Some("v"));
         assert_eq!(closest_name("speed", ["omega", "theta"]), None);
+        assert_eq!(edit_distance("omgea", "omega"), 1);
+        assert_eq!(edit_distance("kitten", "sitting"), 3);
+        assert_eq!(edit_distance("", "abc"), 3);
     }
 }

@@ -234,24 +234,26 @@ fn expression<'a>() -> impl Parser<'a, In<'a>, Expr, Ex<'a>> + Clone {
                 let span = unit.as_ref().map_or(span, |u| span.to(u.span));
                 Expr { kind: ExprKind::Number { value, text: text.to_string(), unit }, span }
             },
-        );
+        ).boxed();
         let args = expr
             .clone()
             .separated_by(just(Tok::Comma))
             .collect::<Vec<_>>()
             .then(punct(Tok::RParen))
-            .delimited_by(just(Tok::LParen), empty());
+            .delimited_by(just(Tok::LParen), empty())
+            .boxed();
         let name_or_call = ident().then(args.or_not()).map(|(callee, args)| match args {
             Some((args, close)) => Expr { span: callee.span.to(close), kind: ExprKind::Call { callee, args } },
             None => Expr { span: callee.span, kind: ExprKind::Name(callee) },
-        });
+        }).boxed();
         let paren = punct(Tok::LParen)
             .then(expr.clone())
             .then(punct(Tok::RParen))
-            .map(|((open, inner), close)| Expr { span: open.to(close), kind: ExprKind::Paren(Box::new(inner)) });
+            .map(|((open, inner), close)| Expr { span: open.to(close), kind: ExprKind::Paren(Box::new(inner)) })
+            .boxed();
         // Malformed input the lexer already reported stands in for an operand.
-        let error = select! { Tok::Error = e => Expr { kind: ExprKind::Error, span: sp(e.span()) } };
-        let atom = choice((number, name_or_call, paren, error)).labelled("an expression");
+        let error = select! { Tok::Error = e => Expr { kind: ExprKind::Error, span: sp(e.span()) } }.boxed();
+        let atom = choice((number, name_or_call, paren, error)).labelled("an expression").boxed();
 
         let primed = atom.then(punct(Tok::Prime).repeated().collect::<Vec<_>>()).map_with(|(atom, primes), e| {
             let Some(last) = primes.last() else { return atom };
@@ -271,10 +273,10 @@ fn expression<'a>() -> impl Parser<'a, In<'a>, Expr, Ex<'a>> + Clone {
                 .with_help("use the right-hand side of the state's dynamics equation, or the state itself"),
             );
             Expr { kind: ExprKind::Error, span }
-        });
+        }).boxed();
 
         // `a ^ -b ^ c` is `a ^ (-(b ^ c))`: folded from the right without recursion.
-        let minuses = punct(Tok::Minus).repeated().collect::<Vec<_>>();
+        let minuses = punct(Tok::Minus).repeated().collect::<Vec<_>>().boxed();
         let pow = primed
             .clone()
             .then(just(Tok::Caret).ignore_then(minuses.clone()).then(primed).repeated().collect::<Vec<_>>())
@@ -294,12 +296,13 @@ fn expression<'a>() -> impl Parser<'a, In<'a>, Expr, Ex<'a>> + Clone {
                     Some(rhs) => binary(BinOp::Pow, first, rhs),
                     None => first,
                 }
-            });
-        let unary = punct(Tok::Minus).repeated().foldr(pow, negate);
-        let mul_op = choice((just(Tok::Star).to(BinOp::Mul), just(Tok::Slash).to(BinOp::Div)));
-        let product = unary.clone().foldl(mul_op.then(unary).repeated(), |l, (op, r)| binary(op, l, r));
-        let add_op = choice((just(Tok::Plus).to(BinOp::Add), just(Tok::Minus).to(BinOp::Sub)));
-        product.clone().foldl(add_op.then(product).repeated(), |l, (op, r)| binary(op, l, r))
+            })
+            .boxed();
+        let unary = punct(Tok::Minus).repeated().foldr(pow, negate).boxed();
+        let mul_op = choice((just(Tok::Star).to(BinOp::Mul), just(Tok::Slash).to(BinOp::Div))).boxed();
+        let product = unary.clone().foldl(mul_op.then(unary).repeated(), |l, (op, r)| binary(op, l, r)).boxed();
+        let add_op = choice((just(Tok::Plus).to(BinOp::Add), just(Tok::Minus).to(BinOp::Sub))).boxed();
+        product.clone().foldl(add_op.then(product).repeated(), |l, (op, r)| binary(op, l, r)).boxed()
     })
     .labelled("an expression")
 }
@@ -313,27 +316,31 @@ fn range<'a>(expr: P<'a, Expr>) -> impl Parser<'a, In<'a>, Range, Ex<'a>> + Clon
 }
 
 fn attributes<'a>(expr: P<'a, Expr>) -> impl Parser<'a, In<'a>, Vec<Attr>, Ex<'a>> + Clone {
-    let range = range(expr.clone());
-    let in_range = keyword("in", "`in`").then(range.clone());
+    let range = range(expr.clone()).boxed();
+    let in_range = keyword("in", "`in`").then(range.clone()).boxed();
     let bound_value = choice((
         keyword("free", "`free`").map(AttrValue::Free),
         in_range.clone().map(|(_, r)| AttrValue::Range(r)),
         expr.clone().map(AttrValue::Expr),
-    ));
+    ))
+    .boxed();
     let start_end = select! {
         Tok::Ident("start") = e => (AttrKind::Start, sp(e.span())),
         Tok::Ident("end") = e => (AttrKind::End, sp(e.span())),
     }
     .then(bound_value)
-    .map(|((kind, kind_span), value)| Some(attr(kind, kind_span, value)));
-    let in_attr =
-        in_range.map(|(kind_span, r)| Some(attr(AttrKind::In, kind_span, AttrValue::Range(r))));
+    .map(|((kind, kind_span), value)| Some(attr(kind, kind_span, value)))
+    .boxed();
+    let in_attr = in_range
+        .map(|(kind_span, r)| Some(attr(AttrKind::In, kind_span, AttrValue::Range(r))))
+        .boxed();
     let guess_scale = select! {
         Tok::Ident("guess") = e => (AttrKind::Guess, sp(e.span())),
         Tok::Ident("scale") = e => (AttrKind::Scale, sp(e.span())),
     }
     .then(expr.clone())
-    .map(|((kind, kind_span), value)| Some(attr(kind, kind_span, AttrValue::Expr(value))));
+    .map(|((kind, kind_span), value)| Some(attr(kind, kind_span, AttrValue::Expr(value))))
+    .boxed();
     let unknown = select! { Tok::Ident(w) = e if !ATTRIBUTES.contains(&w) && w != "free" => (w, sp(e.span())) }
         .then(choice((keyword("in", "`in`").ignore_then(range.clone()).map(|_| ()), range.map(|_| ()), expr.map(|_| ()))).or_not())
         .map_with(|((word, span), _), e| {
@@ -349,7 +356,8 @@ fn attributes<'a>(expr: P<'a, Expr>) -> impl Parser<'a, In<'a>, Vec<Attr>, Ex<'a
             };
             report(e, d);
             None
-        });
+        })
+        .boxed();
     choice((start_end, in_attr, guess_scale, unknown))
         .labelled("an attribute")
         .then_ignore(just(Tok::Comma).or_not())
