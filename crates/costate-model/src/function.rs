@@ -434,6 +434,53 @@ impl Function {
         assert_eq!(inputs.len(), self.n_inputs, "wrong number of inputs");
     }
 
+    /// Rebuild this function's outputs as nodes of `graph`, with input `j` replaced by the node
+    /// `inputs[j]` (`inputs.len() == n_inputs`). The result computes the same values by the
+    /// same operations, so a composition (for example an integrator step made of several
+    /// evaluations) can be compiled as one function and differentiated symbolically as a whole.
+    pub fn replay(&self, graph: &mut Graph, inputs: &[NodeId]) -> Vec<NodeId> {
+        assert_eq!(inputs.len(), self.n_inputs, "wrong number of inputs");
+        let mut node: Vec<Option<NodeId>> = vec![None; self.init_slots.len()];
+        for &(j, s) in &self.values.inputs {
+            node[s as usize] = Some(inputs[j as usize]);
+        }
+        let at = |graph: &mut Graph, node: &[Option<NodeId>], s: u32| -> NodeId {
+            // Slots never written by the tape hold constants (NaN included).
+            node[s as usize].unwrap_or_else(|| graph.constant(self.init_slots[s as usize]))
+        };
+        for ins in &self.values.instrs {
+            let id = match *ins {
+                Instr::Unary { op, a, .. } => {
+                    let a = at(graph, &node, a);
+                    graph.unary(op, a)
+                }
+                Instr::Binary { op, a, b, .. } => {
+                    let (a, b) = (at(graph, &node, a), at(graph, &node, b));
+                    graph.binary(op, a, b)
+                }
+                Instr::Square { a, .. } => {
+                    let (a, c) = (at(graph, &node, a), graph.constant(2.0));
+                    graph.binary(BinaryOp::Pow, a, c)
+                }
+                Instr::PowInt { a, n, .. } => {
+                    let (a, c) = (at(graph, &node, a), graph.constant(f64::from(n)));
+                    graph.binary(BinaryOp::Pow, a, c)
+                }
+                Instr::PowConst { a, c, .. } => {
+                    let (a, c) = (at(graph, &node, a), graph.constant(c));
+                    graph.binary(BinaryOp::Pow, a, c)
+                }
+                Instr::Select { cond, pos, neg, .. } => {
+                    let c = at(graph, &node, cond);
+                    let (p, n) = (at(graph, &node, pos), at(graph, &node, neg));
+                    graph.select(c, p, n)
+                }
+            };
+            node[ins.dst() as usize] = Some(id);
+        }
+        self.output_slots.iter().map(|&s| at(graph, &node, s)).collect()
+    }
+
     /// `outputs.len() == n_outputs`.
     pub fn eval(&self, inputs: &[f64], outputs: &mut [f64], ws: &mut Workspace) {
         self.check_inputs(inputs);

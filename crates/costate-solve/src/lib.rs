@@ -31,8 +31,9 @@ pub use settings::{HessianMode, SettingsError, SqpSettings};
 pub use sqp::{
     log_header, log_line, solve_nlp, IterationRow, Residuals, RowObserver, SolveError, Sqp,
     SqpResult, SqpState, SqpStatus, StallReason, StepKind, Timing, ViolatedRow,
+    STAGNATION_ITERATIONS,
 };
 pub use transcribe::{
-    solve_ocp, Finding, MultipleShooting, OcpSettings, OcpSolution, OcpStatus, Trajectory,
-    Violation, ViolationSource,
+    estimate_memory, solve_ocp, Finding, MemoryEstimate, MultipleShooting, OcpSettings,
+    OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource, DEFAULT_MEMORY_LIMIT,
 };

@@ -59,7 +59,15 @@ pub enum StallReason {
     LineSearch,
     /// The QP subproblem (also in its elastic form) had no usable solution.
     Qp(QpStatus),
+    /// Steps were accepted but moved the iterate by (almost) nothing for several iterations
+    /// in a row ([`STAGNATION_ITERATIONS`]).
+    NoProgress,
 }
+
+/// Consecutive accepted steps of length at most `1e-10 (1 + |y|_inf)` (scaled), or with a
+/// step length below `1e-3` that lowers the merit by at most `1e-9 max(1, |merit|)`, after
+/// which the solver stops as stagnated.
+pub const STAGNATION_ITERATIONS: u32 = 5;
 
 /// How a solve ended.
 #[derive(Clone, Debug, PartialEq)]
@@ -492,6 +500,8 @@ struct Work {
     /// Lower limit on the Hessian shift after a failed step (exact mode).
     shift_floor: f64,
     failures: u32,
+    /// Consecutive accepted steps that changed (almost) nothing.
+    stagnant: u32,
     grad_buf: Vec<f64>,
     w_buf: Vec<f64>,
 }
@@ -714,6 +724,19 @@ fn bound_multipliers(s: &Setup, y: &[f64], lg: &[f64]) -> Vec<f64> {
             }
         })
         .collect()
+}
+
+/// Bound multipliers at `y` given the Lagrangian gradient `lg`: the QP's (`qp`, which see
+/// bounds the interior-point method stops a hair short of) or those of
+/// [`bound_multipliers`], whichever leaves the smaller stationarity residual.
+fn best_bound_multipliers(s: &Setup, y: &[f64], lg: &[f64], qp: &[f64]) -> Vec<f64> {
+    let projected = bound_multipliers(s, y, lg);
+    let worst = |nu: &[f64]| lg.iter().zip(nu).fold(0.0_f64, |a, (l, v)| a.max((l + v).abs()));
+    if qp.len() == s.n && qp.iter().all(|v| v.is_finite()) && worst(qp) < worst(&projected) {
+        qp.to_vec()
+    } else {
+        projected
+    }
 }
 
 fn residuals(s: &Setup, p: &Point, lambda: &[f64], nu: &[f64]) -> Residuals {
@@ -987,8 +1010,19 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
             }
         }
     }
-    // Not convex on the null space either (or a failed step asked for caution): shift,
-    // starting from a fraction of the last shift since the needed one changes slowly.
+    // Not convex on the null space either. With variable blocks (multiple shooting), project
+    // each block onto the positive definite matrices: only the directions of negative
+    // curvature change, where a uniform shift would also damp every good direction and slow
+    // the iteration to a crawl.
+    if wk.shift_floor == 0.0 && !s.blocks.is_empty() {
+        if let Some(t) = project_blocks(&h, &s.blocks, s.n) {
+            wk.last_shift = 0.0;
+            wk.last_weight = 0.0;
+            return ConvexModel { hessian: t, shift: 0.0, augmentation: None };
+        }
+    }
+    // Otherwise (or a failed step asked for caution): shift, starting from a fraction of the
+    // last shift since the needed one changes slowly.
     // No augmentation here: a large weight would only worsen the conditioning of a model that
     // is not convex on the null space anyway.
     let weight = 0.0;
@@ -1000,6 +1034,61 @@ fn convex_model(wk: &mut Work, st: &SqpSettings, h: Triplets) -> ConvexModel {
     wk.last_weight = weight;
     let augmentation = (weight > 0.0).then_some(Augmentation { weight, rows });
     ConvexModel { hessian: t, shift: cv.shift, augmentation }
+}
+
+/// The upper-triangle matrix `h` with every diagonal block of `blocks` replaced by its
+/// projection onto the positive definite matrices (eigenvalues below `delta` raised to
+/// `max(|value|, delta)`, the "absolute value" modification of J. Nocedal, S. J. Wright,
+/// "Numerical Optimization", 2nd ed., 2006, Section 3.4) and entries outside the blocks
+/// dropped, so the result is block diagonal and positive definite. Variables in no block form
+/// singleton blocks. `None` when an eigenvalue is not finite.
+fn project_blocks(h: &Triplets, blocks: &[Range<usize>], n: usize) -> Option<Triplets> {
+    let mut block_of = vec![usize::MAX; n];
+    let mut all: Vec<Range<usize>> = blocks.to_vec();
+    for (b, r) in blocks.iter().enumerate() {
+        for j in r.clone() {
+            block_of[j] = b;
+        }
+    }
+    for j in 0..n {
+        if block_of[j] == usize::MAX {
+            block_of[j] = all.len();
+            all.push(j..j + 1);
+        }
+    }
+    let mut dense: Vec<nalgebra::DMatrix<f64>> =
+        all.iter().map(|r| nalgebra::DMatrix::zeros(r.len(), r.len())).collect();
+    for k in 0..h.nnz() {
+        let (r, c, v) = (h.rows[k], h.cols[k], h.values[k]);
+        let b = block_of[r];
+        if b != block_of[c] {
+            continue;
+        }
+        let (i, j) = (r - all[b].start, c - all[b].start);
+        dense[b][(i, j)] += v;
+        if i != j {
+            dense[b][(j, i)] += v;
+        }
+    }
+    let scale = h.values.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
+    let delta = 1e-8 * scale;
+    let mut out = Triplets::new(n, n);
+    for (b, r) in all.iter().enumerate() {
+        let eig = nalgebra::SymmetricEigen::new(dense[b].clone());
+        if !eig.eigenvalues.iter().all(|v| v.is_finite()) {
+            return None;
+        }
+        let vals = eig.eigenvalues.map(|v| v.abs().max(delta));
+        let m = &eig.eigenvectors
+            * nalgebra::DMatrix::from_diagonal(&vals)
+            * eig.eigenvectors.transpose();
+        for c in 0..r.len() {
+            for i in 0..=c {
+                out.push(r.start + i, r.start + c, m[(i, c)]);
+            }
+        }
+    }
+    Some(out)
 }
 
 /// Outcome of the search along one QP step.
@@ -1232,6 +1321,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             last_weight: 0.0,
             shift_floor: 0.0,
             failures: 0,
+            stagnant: 0,
             grad_buf,
             w_buf,
         });
@@ -1268,6 +1358,9 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         let uninit = || ArgminError::msg("solver not initialised");
         let mut qp_time = Duration::ZERO;
         let mut qp_iterations = 0;
+        // An iteration that stops without a row of its own must not hand the observers the
+        // previous row a second time.
+        state.last_row = None;
 
         // 1. QP Hessian.
         let wk = self.work.as_mut().ok_or_else(uninit)?;
@@ -1388,6 +1481,13 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 }
                 if wk.penalty < needed {
                     wk.penalty = (1.5 * needed).min(st.penalty_max);
+                } else if wk.penalty > 10.0 * needed && wk.penalty > st.penalty_start {
+                    // A weight far above what the multipliers need (left over from a poor
+                    // early linearisation) makes the merit blind to the objective and the
+                    // line search cut every step; let it come down gradually (after
+                    // M. J. D. Powell, "A fast algorithm for nonlinearly constrained
+                    // optimization calculations", 1978, who averages old and needed weights).
+                    wk.penalty = (0.5 * wk.penalty).max(1.5 * needed).max(st.penalty_start);
                 }
             } else if lin_violation > 0.99 * violation_l1 && wk.penalty < st.penalty_max {
                 // The elastic step barely reduces the violation: weigh it more next time.
@@ -1427,9 +1527,10 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 };
                 let wk = self.work.as_mut().ok_or_else(uninit)?;
                 let s = &wk.setup;
-                for i in 0..s.m {
-                    wk.lambda[i] += alpha * (sol.row_multipliers[i] - wk.lambda[i]);
-                }
+                // Full step on the multipliers: the QP's are the least-squares-consistent
+                // estimate at the linearisation, whatever the step length (a damped update
+                // would lag behind and leave a stationarity floor).
+                wk.lambda.copy_from_slice(&sol.row_multipliers);
                 let step: Vec<f64> = y.iter().zip(&wk.point.y).map(|(a, b)| a - b).collect();
                 if let Some(bfgs) = &mut wk.bfgs {
                     let new_lg = lagrangian_gradient(s, &g, &jac, &wk.lambda);
@@ -1438,7 +1539,15 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                     row.bfgs = bfgs.update(&step, &dy, st.bfgs_damping);
                 }
                 let lg = lagrangian_gradient(s, &g, &jac, &wk.lambda);
-                wk.nu = bound_multipliers(s, &y, &lg);
+                wk.nu = best_bound_multipliers(s, &y, &lg, &sol.bound_multipliers);
+                let merit_before = wk.merit(wk.point.f, &wk.point.c);
+                let merit_after = wk.merit(f, &c);
+                let moved = alpha * inf_norm(&sol.step);
+                let size = 1.0 + inf_norm(&y);
+                let gained = merit_before - merit_after;
+                let stagnant = moved <= 1e-10 * size
+                    || (alpha < 1e-3 && gained <= 1e-9 * merit_before.abs().max(1.0));
+                wk.stagnant = if stagnant { wk.stagnant + 1 } else { 0 };
                 wk.point = Point { y, f, c, g, jac };
                 wk.failures = 0;
                 wk.shift_floor = 0.0;
@@ -1502,6 +1611,23 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         row.merit = state.merit;
         state.history.push(row.clone());
         state.last_row = Some(row);
+        // Stagnation: steps too short to change anything, several times in a row. Stop with
+        // the most honest status instead of crawling to the iteration limit.
+        let wk = self.work.as_ref().ok_or_else(uninit)?;
+        if wk.stagnant >= STAGNATION_ITERATIONS && !meets(&state.residuals, &st, 1.0) {
+            let r = state.residuals;
+            let status = if meets(&r, &st, st.reduced_accuracy_factor) {
+                SqpStatus::SolvedReducedAccuracy
+            } else if r.violation > st.feasibility_tolerance && self.violation_is_stationary()? {
+                let wk = self.work.as_ref().ok_or_else(uninit)?;
+                SqpStatus::LocallyInfeasible {
+                    rows: violated_rows(&wk.setup, &wk.point.c, st.feasibility_tolerance),
+                }
+            } else {
+                SqpStatus::Stalled { reason: StallReason::NoProgress }
+            };
+            return Ok((self.finish(state, status), None));
+        }
         Ok((state, None))
     }
 

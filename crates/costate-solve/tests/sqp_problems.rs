@@ -389,6 +389,50 @@ fn redundant_equalities_still_solve() {
     }
 }
 
+/// min (x1 - 2)^2 + (x2 - 2)^2 s.t. x1 + x2 <= 2, 2 x1 + 2 x2 <= 4, x1 <= 1 (a bound).
+/// At the optimum all three are active with gradients (1, 1), (2, 2), (1, 0) in the plane:
+/// LICQ fails and the multipliers are not unique. Independent computation: the projection of
+/// (2, 2) onto the half-plane x1 + x2 <= 2 is (1, 1), which satisfies x1 <= 1, so x* = (1, 1),
+/// f* = 2; stationarity needs lambda1 + 2 lambda2 + nu1 = 2 and lambda1 + 2 lambda2 = 2, so
+/// nu1 = 0.
+fn degenerate_active_inequalities() -> TestNlp {
+    TestNlp::new(
+        vec![-1.0, 0.5],
+        Box::new(|x| (x[0] - 2.0).powi(2) + (x[1] - 2.0).powi(2)),
+        Box::new(|x, g| {
+            g[0] = 2.0 * (x[0] - 2.0);
+            g[1] = 2.0 * (x[1] - 2.0);
+        }),
+    )
+    .bounds(vec![-INF, -INF], vec![1.0, INF])
+    .constraints(
+        vec![-INF, -INF],
+        vec![2.0, 4.0],
+        Box::new(|x, c| {
+            c[0] = x[0] + x[1];
+            c[1] = 2.0 * x[0] + 2.0 * x[1];
+        }),
+        Box::new(|_, j| j.copy_from_slice(&[1.0, 1.0, 2.0, 2.0])),
+    )
+    .hessian(Box::new(|_, s, _, h| {
+        h[0] = 2.0 * s;
+        h[3] = 2.0 * s;
+    }))
+}
+
+#[test]
+fn degenerate_active_inequalities_still_solve() {
+    for mode in MODES {
+        let r = solve(&mut degenerate_active_inequalities(), mode);
+        assert_solved(&r, mode);
+        assert_close(&r.x, &[1.0, 1.0], 1e-6, "x");
+        assert!((r.objective - 2.0).abs() < 1e-6, "{}", r.objective);
+        let l = &r.constraint_multipliers;
+        assert!(l[0] >= -1e-8 && l[1] >= -1e-8, "upper sides active: {l:?}");
+        assert!((l[0] + 2.0 * l[1] - 2.0).abs() < 1e-6, "{l:?}");
+    }
+}
+
 /// min -x1 - x2 s.t. x1 = x2: unbounded below along the constraint.
 fn unbounded() -> TestNlp {
     TestNlp::new(vec![0.0, 0.0], Box::new(|x| -x[0] - x[1]), Box::new(|_, g| g.fill(-1.0)))

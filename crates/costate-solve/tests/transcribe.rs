@@ -148,6 +148,12 @@ fn solve(ocp: &Ocp, s: &OcpSettings) -> OcpSolution {
 /// Two states, one control, one parameter, one integral that enters both the objective and an
 /// isoperimetric boundary row, a path row that depends on time, free or fixed end time.
 fn mixed_problem(free_end: bool) -> Ocp {
+    mixed_problem_with(free_end, true)
+}
+
+/// [`mixed_problem`], or with `q_over_p` false its isoperimetric row `q / 2 - x0(tf)`, linear
+/// in the integral, so the transcription can offer an exact Hessian.
+fn mixed_problem_with(free_end: bool, q_over_p: bool) -> Ocp {
     let end = if free_end {
         EndTime::Free { bounds: Bounds { lo: 0.5, hi: 4.0 }, guess: 1.5 }
     } else {
@@ -230,7 +236,7 @@ fn mixed_problem(free_end: bool) -> Ocp {
                 e.i(l.x0(1)),
                 e.i(l.xf(1)),
             );
-            let a = e.div(q, p);
+            let a = if q_over_p { e.div(q, p) } else { e.scale(0.5, q) };
             let b0 = e.sub(a, xf0);
             let c = e.mul(tf, xf1);
             vec![b0, e.add(x01, c)]
@@ -323,6 +329,93 @@ fn jacobian_and_gradient_match_central_differences() {
             check_derivatives(free_end, controls, seed);
         }
     }
+}
+
+/// Compares the exact Lagrangian Hessian with central differences of the Lagrangian gradient
+/// `sigma grad f + J' lambda` (built from the already checked first derivatives) at a random
+/// point and random multipliers.
+fn check_hessian(free_end: bool, controls: ControlShape, seed: u64) {
+    let ocp = mixed_problem_with(free_end, false);
+    let integ = IntegratorSettings { controls, substeps: 2, ..IntegratorSettings::default() };
+    let mut nlp = MultipleShooting::new(&ocp, 4, integ).expect("valid problem");
+    assert!(nlp.has_exact_hessian(), "RK4 with integrals entering linearly has a Hessian");
+    let (n, m) = (nlp.num_variables(), nlp.num_constraints());
+    let (mut lo, mut hi) = (vec![0.0; n], vec![0.0; n]);
+    nlp.variable_bounds(&mut lo, &mut hi);
+    let mut rng = Lcg(seed);
+    let w: Vec<f64> = (0..n)
+        .map(|j| {
+            let v = 0.8 * rng.next();
+            let v = if lo[j] > 0.0 { lo[j] + 0.5 + 0.3 * v } else { v };
+            v.max(lo[j]).min(hi[j])
+        })
+        .collect();
+    let lambda: Vec<f64> = (0..m).map(|_| rng.next()).collect();
+    let sigma = 0.7;
+    let jp = nlp.jacobian_pattern();
+    let gp = nlp.gradient_pattern();
+    let mut lagrangian_gradient = |nlp: &mut MultipleShooting, w: &[f64]| -> Vec<f64> {
+        let mut out = vec![0.0; n];
+        let mut g = vec![0.0; gp.len()];
+        nlp.gradient(w, &mut g).expect("gradient evaluates");
+        for (e, &j) in gp.iter().enumerate() {
+            out[j] += sigma * g[e];
+        }
+        let mut jv = vec![0.0; jp.len()];
+        nlp.jacobian(w, &mut jv).expect("jacobian evaluates");
+        for (e, v) in jv.iter().enumerate() {
+            out[jp.cols[e]] += lambda[jp.rows[e]] * v;
+        }
+        out
+    };
+    let hp = nlp.hessian_pattern().expect("a Hessian pattern");
+    assert_eq!(hp.first_out_of_range(n, n), None);
+    assert!((0..hp.len()).all(|e| hp.rows[e] >= hp.cols[e]), "lower triangle only");
+    let mut hv = vec![0.0; hp.len()];
+    nlp.hessian(&w, sigma, &lambda, &mut hv).expect("hessian evaluates");
+    let mut dense = vec![0.0; n * n];
+    for (e, v) in hv.iter().enumerate() {
+        dense[hp.rows[e] * n + hp.cols[e]] += v;
+        if hp.rows[e] != hp.cols[e] {
+            dense[hp.cols[e] * n + hp.rows[e]] += v;
+        }
+    }
+    // Central differences of exact first derivatives, step 1e-6: the same error budget as
+    // `check_derivatives` above.
+    let step = 1e-6;
+    let tol = 1e-6;
+    for j in 0..n {
+        let mut wp = w.clone();
+        let mut wm = w.clone();
+        wp[j] += step;
+        wm[j] -= step;
+        let gp = lagrangian_gradient(&mut nlp, &wp);
+        let gm = lagrangian_gradient(&mut nlp, &wm);
+        for i in 0..n {
+            let fd = (gp[i] - gm[i]) / (2.0 * step);
+            let ex = dense[i * n + j];
+            assert!(
+                (fd - ex).abs() <= tol * (1.0 + ex.abs()),
+                "d2 L / d w[{i}] d w[{j}]: exact {ex}, differences {fd} (free end {free_end}, \
+                 {controls:?})"
+            );
+        }
+    }
+}
+
+#[test]
+fn exact_hessian_matches_central_differences_of_the_gradient() {
+    let mut seed = 40;
+    for free_end in [false, true] {
+        for controls in [ControlShape::Constant, ControlShape::Linear] {
+            seed += 1;
+            check_hessian(free_end, controls, seed);
+        }
+    }
+    // An integral entering nonlinearly (q / p) would couple all intervals: no Hessian then.
+    let nlp = MultipleShooting::new(&mixed_problem(true), 4, IntegratorSettings::default())
+        .expect("valid problem");
+    assert!(!nlp.has_exact_hessian() && nlp.hessian_pattern().is_none());
 }
 
 #[test]

@@ -21,6 +21,11 @@ const A: [[f64; STAGES]; STAGES] =
 const B: [f64; STAGES] = [1.0 / 6.0, 1.0 / 3.0, 1.0 / 3.0, 1.0 / 6.0];
 const C: [f64; STAGES] = [0.0, 0.5, 0.5, 1.0];
 
+/// The tableau `(A, b, c)` used by [`step`], for code that rebuilds the same step symbolically.
+pub(crate) fn tableau() -> ([[f64; STAGES]; STAGES], [f64; STAGES], [f64; STAGES]) {
+    (A, B, C)
+}
+
 #[derive(Clone, Debug)]
 pub(crate) struct Work {
     /// Running input `[t, X, u, p]`.

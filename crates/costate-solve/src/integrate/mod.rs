@@ -35,6 +35,7 @@ use costate_model::{Function, NodeId, Ocp, RunningLayout, Workspace};
 use nalgebra::DMatrix;
 
 use dense::DenseLu;
+pub(crate) use explicit::tableau as rk4_tableau;
 
 /// The integration scheme used on every step of an interval.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]

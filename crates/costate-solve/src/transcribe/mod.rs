@@ -18,9 +18,12 @@
 //! (the last node of piecewise-constant controls uses the last interval's control), then the
 //! boundary rows `b(t0, tf, x_0, x_N, p, Q)` with `Q` the sum of the interval integrals. State,
 //! start, end, control, parameter and end-time bounds are variable bounds. The objective
-//! `phi(t0, tf, x_0, x_N, p, Q)` has an exact gradient; there is no exact Hessian, so the SQP
-//! uses its damped block BFGS with one block per node.
+//! `phi(t0, tf, x_0, x_N, p, Q)` has an exact gradient. With the RK4 integrator the NLP also
+//! has an exact Lagrangian Hessian (see `exact.rs`: the whole interval map is one expression
+//! graph differentiated symbolically); with Radau IIA, or endpoint functions nonlinear in the
+//! integrals, it has none and the SQP uses its damped block BFGS with one block per node.
 
+mod exact;
 mod layout;
 mod shooting;
 
@@ -48,6 +51,101 @@ pub struct OcpSettings {
     pub integrator: IntegratorSettings,
     /// The SQP's settings. Default: [`SqpSettings::default`].
     pub sqp: SqpSettings,
+    /// Largest memory, in bytes, the solve may need by the estimate of [`estimate_memory`]
+    /// (made before anything of the problem's size is allocated); a larger problem is refused
+    /// with an error naming its size. Default [`DEFAULT_MEMORY_LIMIT`] (4 GiB).
+    pub memory_limit: u64,
+}
+
+/// Default of [`OcpSettings::memory_limit`]: 4 GiB.
+pub const DEFAULT_MEMORY_LIMIT: u64 = 4 << 30;
+
+/// Size of the multiple-shooting NLP of a problem on a number of intervals, and the memory
+/// its solve needs, estimated from the dimensions alone (nothing is built).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct MemoryEstimate {
+    pub intervals: usize,
+    pub variables: f64,
+    pub constraints: f64,
+    /// Constraint Jacobian nonzeros.
+    pub jacobian_nonzeros: f64,
+    /// Lagrangian Hessian (or block BFGS) nonzeros, lower triangle.
+    pub hessian_nonzeros: f64,
+    /// Nonzeros of the sparse LDL' factor of the QP's KKT system (banded fill estimate).
+    pub factor_nonzeros: f64,
+    /// Bytes, all of the above with the copies the SQP and the QP solver keep.
+    pub bytes: f64,
+}
+
+impl std::fmt::Display for MemoryEstimate {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "{} intervals give {:.3e} variables, {:.3e} constraints, {:.3e} Jacobian and {:.3e} \
+             Hessian nonzeros and about {:.3e} nonzeros in the QP factorisation: about {:.2} GiB",
+            self.intervals,
+            self.variables,
+            self.constraints,
+            self.jacobian_nonzeros,
+            self.hessian_nonzeros,
+            self.factor_nonzeros,
+            self.bytes / f64::from(1u32 << 30)
+        )
+    }
+}
+
+/// Estimate the size and memory of the solve of `ocp` on `intervals` intervals, in floating
+/// point so that absurd interval counts cannot overflow. Counts follow the layout of
+/// [`Layout`]; the QP factor is estimated as a band of the width of two coupled nodes per
+/// interval, which is what the multiple-shooting KKT structure gives after ordering.
+pub fn estimate_memory(
+    ocp: &Ocp,
+    intervals: usize,
+    integrator: &IntegratorSettings,
+) -> MemoryEstimate {
+    let nx = ocp.states.len() as f64;
+    let nu = ocp.controls.len() as f64;
+    let np = ocp.params.len() as f64;
+    let nq = ocp.n_integrals as f64;
+    let ng = ocp.path_bounds.len() as f64;
+    let nb = ocp.boundary_bounds.len() as f64;
+    let free =
+        if matches!(ocp.horizon.end, costate_model::EndTime::Free { .. }) { 1.0 } else { 0.0 };
+    let linear = integrator.controls == crate::integrate::ControlShape::Linear;
+    let nuc = if linear { 2.0 * nu } else { nu };
+    let big_n = intervals as f64;
+    let nodes = big_n + 1.0;
+    let block = nx + nu + np + free;
+    let variables = nodes * block;
+    let copies = np + free;
+    let constraints = big_n * (nx + copies) + nodes * ng + nb;
+    let cols = nx + nuc + np + 2.0;
+    let jacobian_nonzeros = big_n * (nx * (1.0 + nx + nuc + np + free) + 2.0 * copies)
+        + nodes * ng * (1.0 + nx + nu + np)
+        + nb * (2.0 * nx + np + 1.0)
+        + if nq > 0.0 { nb * variables } else { 0.0 };
+    let hessian_nonzeros = nodes * block * (block + 1.0) / 2.0;
+    let band = 2.0 * block + nx + copies + ng;
+    let factor_nonzeros = (big_n + 1.0) * band * band;
+    // Per nonzero of a triplet or CSC matrix: two indices and a value. The SQP holds the
+    // Jacobian and Hessian in several forms (its own, the QP's, the elastic QP's, the
+    // solver's CSC and KKT copies); vectors of length n or m appear a few dozen times;
+    // integration keeps sensitivities per interval and a dense integral derivative (nq x n).
+    let per_entry = 24.0;
+    let bytes = per_entry * 6.0 * (jacobian_nonzeros + hessian_nonzeros)
+        + 16.0 * 2.0 * factor_nonzeros
+        + 8.0 * 40.0 * (variables + constraints)
+        + 8.0 * big_n * (nx + nq) * (cols + 1.0) * 2.0
+        + 8.0 * nq * variables;
+    MemoryEstimate {
+        intervals,
+        variables,
+        constraints,
+        jacobian_nonzeros,
+        hessian_nonzeros,
+        factor_nonzeros,
+        bytes,
+    }
 }
 
 impl Default for OcpSettings {
@@ -56,6 +154,7 @@ impl Default for OcpSettings {
             intervals: 50,
             integrator: IntegratorSettings { substeps: 2, ..IntegratorSettings::default() },
             sqp: SqpSettings::default(),
+            memory_limit: DEFAULT_MEMORY_LIMIT,
         }
     }
 }
@@ -161,6 +260,14 @@ pub fn solve_ocp(
 ) -> Result<OcpSolution, String> {
     settings.integrator.validate().map_err(|e| e.to_string())?;
     settings.sqp.validate().map_err(|e| e.to_string())?;
+    let need = estimate_memory(ocp, settings.intervals, &settings.integrator);
+    if need.bytes > settings.memory_limit as f64 {
+        return Err(format!(
+            "problem too large for the memory limit: {need}, over the limit of {:.2} GiB \
+             (setting `memory_limit`); use fewer intervals",
+            settings.memory_limit as f64 / f64::from(1u32 << 30)
+        ));
+    }
     let mut nlp = MultipleShooting::new(ocp, settings.intervals, settings.integrator)?;
     if let Some(t) = warm {
         nlp.warm_start(t)?;

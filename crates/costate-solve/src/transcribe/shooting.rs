@@ -3,9 +3,8 @@
 //! Owns the evaluation of the NLP functions from the integrator's interval maps and the
 //! compiled path, boundary and objective functions, with their exact first derivatives (the
 //! integrator's discrete sensitivities chained through the time scaling and the integrals).
-//! Must not: difference numerically, know names or source locations (failures carry
-//! [`function_tag`] codes), or provide a Hessian (the integrator has no second-order
-//! sensitivities, so the SQP uses its block BFGS).
+//! Must not: difference numerically or know names or source locations (failures carry
+//! [`function_tag`] codes). Second derivatives come from [`super::exact`] (RK4 only).
 //!
 //! Time scaling: node `k` sits at the fraction `s_k` of the horizon, `t_k = t0 + s_k (tf - t0)`,
 //! and interval `k` has length `h_k = (s_{k+1} - s_k)(tf - t0)`, so with a free end time
@@ -23,6 +22,7 @@ use crate::integrate::{
 };
 use crate::nlp::{EvalError, EvalFailure, EvalPart, Nlp, Pattern};
 
+use super::exact::ExactHessian;
 use super::layout::{function_tag, Layout};
 use super::Trajectory;
 
@@ -121,6 +121,10 @@ pub struct MultipleShooting {
     cache: Cache,
     scratch: Vec<f64>,
     pub(crate) last_failure: Option<FailureNote>,
+    /// Exact Lagrangian Hessian, when the integrator and functions allow one.
+    exact: Option<ExactHessian>,
+    /// Offer the exact Hessian to the solver (`true` by default).
+    offer_exact: bool,
 }
 
 fn check_shape(name: &str, f: &Function, inputs: usize, outputs: usize) -> Result<(), String> {
@@ -351,7 +355,10 @@ impl MultipleShooting {
             },
             scratch: vec![0.0; n],
             last_failure: None,
+            exact: None,
+            offer_exact: true,
         };
+        s.exact = ExactHessian::new(ocp, &s.layout, &s.mesh, t0, &integrator);
         s.cache.outputs = (0..intervals).map(|_| s.integrator.new_output()).collect();
         s.boundary_cols = (0..s.layout.nb)
             .map(|r| {
@@ -371,6 +378,83 @@ impl MultipleShooting {
 
     pub fn layout(&self) -> &Layout {
         &self.layout
+    }
+
+    /// Whether the NLP offers its exact Lagrangian Hessian (RK4 with endpoint functions linear
+    /// in the integrals; see `exact.rs`).
+    pub fn has_exact_hessian(&self) -> bool {
+        self.exact.is_some() && self.offer_exact
+    }
+
+    /// Hide the exact Hessian from the solver, which then uses block BFGS.
+    pub fn without_exact_hessian(mut self) -> Self {
+        self.offer_exact = false;
+        self
+    }
+
+    /// Fill the Hessian of `sigma f + lambda' c` (pattern of `exact.pattern`).
+    fn fill_hessian(
+        &mut self,
+        ex: &mut ExactHessian,
+        w: &[f64],
+        sigma: f64,
+        lambda: &[f64],
+        values: &mut [f64],
+    ) -> Result<(), EvalError> {
+        let l = self.layout.clone();
+        let (nx, nq) = (l.nx, l.nq);
+        values.fill(0.0);
+        if nq > 0 {
+            self.integrate(w, false, EvalPart::Hessian)?;
+        }
+        let mut input = vec![0.0; self.objective.input.len()];
+        self.endpoint_input(w, &mut input);
+        // The integrals enter the endpoint functions linearly (checked when `ex` was built),
+        // so each interval's integral weights are the endpoint functions' first derivatives.
+        let mut wq = vec![0.0; nq];
+        if nq > 0 {
+            let q0 = self.ep.q(0);
+            self.objective.input.copy_from_slice(&input);
+            self.objective.value_and_jacobian();
+            for (e, &(_, c)) in self.objective.fun.jacobian_pattern().iter().enumerate() {
+                if c >= q0 {
+                    wq[c - q0] += sigma * self.objective.jac[e];
+                }
+            }
+            if l.nb > 0 {
+                self.boundary.input.copy_from_slice(&input);
+                self.boundary.value_and_jacobian();
+                for (e, &(r, c)) in self.boundary.fun.jacobian_pattern().iter().enumerate() {
+                    if c >= q0 {
+                        wq[c - q0] += lambda[l.boundary_row(r)] * self.boundary.jac[e];
+                    }
+                }
+            }
+        }
+        let mut weights = vec![0.0; nx + nq];
+        weights[nx..].copy_from_slice(&wq);
+        for k in 0..l.intervals {
+            // Continuity rows are `x_{k+1} - F_k`.
+            for i in 0..nx {
+                weights[i] = -lambda[l.continuity_row(k, i)];
+            }
+            let span = self.span_at(w, k);
+            ex.set_step_input(&l, w, k, span, self.mesh[k], self.mesh[k + 1] - self.mesh[k]);
+            ex.add_step(k, &weights, values);
+        }
+        if l.ng > 0 {
+            let mut pw = vec![0.0; l.ng];
+            for k in 0..l.n_nodes() {
+                self.path_input(w, k);
+                for (r, v) in pw.iter_mut().enumerate() {
+                    *v = lambda[l.path_row(k, r)];
+                }
+                ex.add_path(k, &self.path.input, &pw, values);
+            }
+        }
+        let bw: Vec<f64> = (0..l.nb).map(|r| lambda[l.boundary_row(r)]).collect();
+        ex.add_endpoint(&input, sigma, &bw, values);
+        Ok(())
     }
 
     /// Normalised node positions.
@@ -917,6 +1001,29 @@ impl Nlp for MultipleShooting {
             self.scratch = acc;
         }
         Ok(())
+    }
+
+    fn hessian_pattern(&self) -> Option<Pattern> {
+        self.exact.as_ref().filter(|_| self.offer_exact).map(|e| e.pattern.clone())
+    }
+
+    fn hessian(
+        &mut self,
+        w: &[f64],
+        objective_factor: f64,
+        multipliers: &[f64],
+        values: &mut [f64],
+    ) -> Result<(), EvalError> {
+        let Some(mut ex) = self.exact.take() else {
+            return Err(EvalError::unavailable(EvalPart::Hessian));
+        };
+        if !self.offer_exact {
+            self.exact = Some(ex);
+            return Err(EvalError::unavailable(EvalPart::Hessian));
+        }
+        let out = self.fill_hessian(&mut ex, w, objective_factor, multipliers, values);
+        self.exact = Some(ex);
+        out
     }
 
     fn variable_blocks(&self) -> Vec<Range<usize>> {
