@@ -39,7 +39,7 @@ pub fn hover(analysis: &Analysis, offset: usize, solution: Option<&SolveSummary>
     None
 }
 
-fn declared_at<'a>(analysis: &'a Analysis, word: Span) -> Option<&'a Symbol> {
+fn declared_at(analysis: &Analysis, word: Span) -> Option<&Symbol> {
     analysis.check.symbols.iter().find(|s| s.kind != SymbolKind::Builtin && s.name_span == word)
 }
 

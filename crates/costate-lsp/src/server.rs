@@ -325,7 +325,7 @@ impl LanguageServer for Backend {
         let legend = SemanticTokensLegend {
             token_types: costate_ide::TOKEN_TYPES
                 .iter()
-                .map(|t| SemanticTokenType::new(*t))
+                .map(|t| SemanticTokenType::new(t))
                 .collect(),
             token_modifiers: vec![SemanticTokenModifier::DECLARATION],
         };

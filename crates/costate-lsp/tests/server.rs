@@ -69,10 +69,7 @@ async fn diagnostics_follow_edits_that_break_and_repair_the_file() {
     // Repair both, in two edits sent back to back: they apply in order.
     client.change(URI, 4, replace(14, 0, 0, "}")).await;
     client.change(URI, 5, replace(21, 7, 9, "v")).await;
-    check(
-        show_diagnostics(&client.diagnostics(URI, 5).await),
-        expect![""],
-    );
+    check(show_diagnostics(&client.diagnostics(URI, 5).await), expect![""]);
 }
 
 #[tokio::test]
@@ -515,11 +512,14 @@ async fn solve_on_save_shows_the_result_and_writes_the_files() {
             )
         })
         .collect();
-    check(hints.join("\n"), expect![[r#"
+    check(
+        hints.join("\n"),
+        expect![[r#"
         8:6 → 1 s
         12:3 → 1 m
         13:3 → 0 m/s
-        17:3 → -5.45455 m/s^2"#]]);
+        17:3 → -5.45455 m/s^2"#]],
+    );
     let hover = client
         .request(
             "textDocument/hover",
@@ -564,7 +564,7 @@ async fn a_newer_save_cancels_the_running_solve() {
         )
         .await;
     client.save(&uri).await;
-    let mut endings = vec![client.solve_finished().await, client.solve_finished().await];
+    let mut endings = [client.solve_finished().await, client.solve_finished().await];
     endings.sort();
     check(
         endings.join("\n"),
