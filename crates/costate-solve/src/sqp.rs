@@ -64,9 +64,9 @@ pub enum StallReason {
     NoProgress,
 }
 
-/// Consecutive accepted steps of length at most `1e-10 (1 + |y|_inf)` (scaled), or with a
-/// step length below `1e-3` that lowers the merit by at most `1e-9 max(1, |merit|)`, after
-/// which the solver stops as stagnated.
+/// Consecutive accepted steps of length at most `1e-10 (1 + |y|_inf)` (scaled), or cut by
+/// the line search and lowering the merit by at most `1e-9 max(1, |merit|)`, after which the
+/// solver stops as stagnated.
 pub const STAGNATION_ITERATIONS: u32 = 5;
 
 /// How a solve ended.
@@ -1138,6 +1138,37 @@ impl Sqp {
         state.qp_time = self.qp_time;
     }
 
+    /// Multipliers of the equality rows that best satisfy stationarity at `p` in the least-
+    /// squares sense (`min |g + J_E' lambda|`), from the QP `min 1/2 d'd + g'd, J_E d = 0`
+    /// whose optimality conditions `d + g + J_E' lambda = 0` make `d` the residual; inequality
+    /// rows get 0. Used for the first exact Hessian, which with zero multipliers would ignore
+    /// the curvature of the constraints (for a minimum-time problem it would be zero, and the
+    /// first step a jump to a bound). Zero multipliers when the QP has no solution.
+    fn least_squares_multipliers(&mut self, s: &Setup, p: &Point) -> Result<Vec<f64>, ArgminError> {
+        let qp = QpProblem {
+            hessian: identity(s.n),
+            gradient: p.g.clone(),
+            jacobian: Triplets {
+                nrows: s.m,
+                ncols: s.n,
+                rows: s.jac.rows.clone(),
+                cols: s.jac.cols.clone(),
+                values: p.jac.clone(),
+            },
+            row_lower: (0..s.m)
+                .map(|i| if s.inequality[i] { f64::NEG_INFINITY } else { 0.0 })
+                .collect(),
+            row_upper: (0..s.m)
+                .map(|i| if s.inequality[i] { f64::INFINITY } else { 0.0 })
+                .collect(),
+            var_lower: vec![f64::NEG_INFINITY; s.n],
+            var_upper: vec![f64::INFINITY; s.n],
+        };
+        let (sol, _) = self.solve_qp(&qp)?;
+        let ok = sol.status.has_solution() && sol.row_multipliers.iter().all(|v| v.is_finite());
+        Ok(if ok { sol.row_multipliers } else { vec![0.0; s.m] })
+    }
+
     /// Proximal QP on the l1 violation alone: a tiny step means the violation is stationary.
     fn violation_is_stationary(&mut self) -> Result<bool, ArgminError> {
         let Some(wk) = &self.work else { return Ok(false) };
@@ -1164,6 +1195,10 @@ impl Sqp {
             return Err(ArgminError::msg("solver not initialised"));
         };
         let phi0 = wk.merit(wk.point.f, &wk.point.c);
+        // Merit changes below rounding (a few dozen ulps of the merit) count as no increase:
+        // near a solution the predicted decrease is itself at rounding level, and demanding
+        // it exactly would reject every step there and leave a stationarity floor.
+        let noise = 64.0 * f64::EPSILON * phi0.abs().max(1.0);
         let mut alpha = 1.0;
         let mut backtracks = 0;
         let mut any_value = false;
@@ -1177,7 +1212,7 @@ impl Sqp {
                 Ok((f, c)) => {
                     any_value = true;
                     let phi = wk.merit(f, &c);
-                    if phi <= phi0 + st.sufficient_decrease * alpha * slope {
+                    if phi <= phi0 + st.sufficient_decrease * alpha * slope + noise {
                         return Ok(Search::Accepted { y, f, c, alpha, soc: false, backtracks });
                     }
                     if alpha == 1.0 && allow_soc && st.second_order_correction && wk.setup.m > 0 {
@@ -1211,7 +1246,9 @@ impl Sqp {
                                     .work
                                     .as_ref()
                                     .ok_or_else(|| ArgminError::msg("solver not initialised"))?;
-                                if wk.merit(f2, &c2) <= phi0 + st.sufficient_decrease * slope {
+                                if wk.merit(f2, &c2)
+                                    <= phi0 + st.sufficient_decrease * slope + noise
+                                {
                                     return Ok(Search::Accepted {
                                         y: y2,
                                         f: f2,
@@ -1305,7 +1342,10 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 (0..s.n).map(|j| warm_n[j] * sc.var[j] / sc.obj).collect(),
             )
         } else {
-            let lambda = vec![0.0; s.m];
+            let mut lambda = vec![0.0; s.m];
+            if s.hess.is_some() {
+                lambda = self.least_squares_multipliers(&s, &point)?;
+            }
             let lg = lagrangian_gradient(&s, &point.g, &point.jac, &lambda);
             let nu = bound_multipliers(&s, &point.y, &lg);
             (lambda, nu)
@@ -1546,7 +1586,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 let size = 1.0 + inf_norm(&y);
                 let gained = merit_before - merit_after;
                 let stagnant = moved <= 1e-10 * size
-                    || (alpha < 1e-3 && gained <= 1e-9 * merit_before.abs().max(1.0));
+                    || (alpha < 1.0 && gained <= 1e-9 * merit_before.abs().max(1.0));
                 wk.stagnant = if stagnant { wk.stagnant + 1 } else { 0 };
                 wk.point = Point { y, f, c, g, jac };
                 wk.failures = 0;

@@ -139,6 +139,13 @@ fn solve(ocp: &Ocp, s: &OcpSettings) -> OcpSolution {
     let sol =
         solve_ocp(ocp, s, None, None, &mut |_| rows += 1).expect("valid problem and settings");
     assert_eq!(rows, sol.history.len(), "the observer sees every row of the history");
+    if std::env::var("SQP_LOG").is_ok() {
+        eprintln!("{}", costate_solve::log_header());
+        for row in &sol.history {
+            eprintln!("{}", costate_solve::log_line(row));
+        }
+        eprintln!("{:?}", sol.status);
+    }
     sol
 }
 
@@ -354,7 +361,7 @@ fn check_hessian(free_end: bool, controls: ControlShape, seed: u64) {
     let sigma = 0.7;
     let jp = nlp.jacobian_pattern();
     let gp = nlp.gradient_pattern();
-    let mut lagrangian_gradient = |nlp: &mut MultipleShooting, w: &[f64]| -> Vec<f64> {
+    let lagrangian_gradient = |nlp: &mut MultipleShooting, w: &[f64]| -> Vec<f64> {
         let mut out = vec![0.0; n];
         let mut g = vec![0.0; gp.len()];
         nlp.gradient(w, &mut g).expect("gradient evaluates");
@@ -596,7 +603,13 @@ fn minimum_time_double_integrator() {
         // N = 102 on, hence 150 intervals for that case; see the report.
         let single_arc = x0 + v0 * v0.abs() / 2.0 == 0.0;
         let n = if single_arc { 150 } else { 50 };
-        let sol = solve(&ocp, &settings(n, ControlShape::Constant));
+        // Block BFGS, as this test was written for. Known weakness of the exact Hessian here
+        // (see the status notes): the objective is linear in tf and the first exact Hessian
+        // carries almost no curvature in it, so the first step jumps tf to its lower bound and
+        // from (1, 1) the solve ends "locally infeasible" in the elastic phase.
+        let mut s = settings(n, ControlShape::Constant);
+        s.sqp.hessian = costate_solve::HessianMode::Bfgs;
+        let sol = solve(&ocp, &s);
         assert!(sol.status.is_solved(), "({x0}, {v0}): {:?}", sol.status);
         assert!(sol.max_violation < 1e-6);
         let rel = (sol.trajectory.end_time - expected).abs() / expected;
