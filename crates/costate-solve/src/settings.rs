@@ -10,10 +10,11 @@ use std::fmt;
 /// Where the QP Hessian comes from.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
 pub enum HessianMode {
-    /// The exact Lagrangian Hessian when the problem provides one, else block BFGS.
+    /// The exact Lagrangian Hessian when the problem provides one (the multiple-shooting
+    /// transcription does with RK4), else block BFGS (Radau IIA).
     Auto,
-    /// The exact Lagrangian Hessian, shifted on its diagonal until positive definite. A
-    /// problem without one is an input error.
+    /// The exact Lagrangian Hessian, convexified (augmented-Lagrangian term, block projection
+    /// or diagonal shift; see `sqp.rs`). A problem without one is an input error.
     Exact,
     /// Damped block-diagonal BFGS built from gradient differences.
     Bfgs,

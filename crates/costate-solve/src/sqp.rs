@@ -5,8 +5,11 @@
 //! are plain indices and the problem's own [`EvalError`] codes.
 //!
 //! One iteration, in scaled variables `y = w / scale` (see [`Scaling`]):
-//! 1. QP Hessian `B`: block BFGS, or the exact Lagrangian Hessian plus the smallest diagonal
-//!    shift that makes it positive definite, so the QP is strictly convex.
+//! 1. QP Hessian `B`: block BFGS, or the exact Lagrangian Hessian made convex: unchanged if
+//!    positive definite, else with an augmented-Lagrangian term on the active rows, else (with
+//!    variable blocks) each diagonal block projected onto the positive definite matrices, else
+//!    a diagonal shift; so every QP is strictly convex. The first exact Hessian uses
+//!    least-squares multipliers (zero ones would drop the constraints' curvature).
 //! 2. QP `min 1/2 d'Bd + g'd  s.t.  cl <= c + J d <= cu,  yl <= y + d <= yu`. If it is
 //!    infeasible (inconsistent linearisation), the elastic QP relaxes every row with
 //!    nonnegative slacks weighted by the penalty, so a step always exists; if the violation
@@ -19,7 +22,13 @@
 //!    Algorithm 18.3), with one second-order correction (eq. (18.51)) when the full step is
 //!    rejected; trial points where the problem cannot be evaluated (NaN/Inf) are backtracked
 //!    from like rejected ones.
-//! 5. Multipliers move with the step; BFGS is updated from the Lagrangian gradient difference.
+//! 5. Multipliers take the QP's (a full step, whatever the step length); bound multipliers
+//!    are the QP's or the projected ones, whichever satisfies stationarity better; BFGS is
+//!    updated from the Lagrangian gradient difference.
+//! 6. Stagnation: after [`STAGNATION_ITERATIONS`] accepted steps in a row that change nothing
+//!    (or are cut by the line search without lowering the merit), the solve ends "solved to
+//!    reduced accuracy" if the loosened tolerances hold, "locally infeasible" if the violation
+//!    is stationary, else stalled ([`StallReason::NoProgress`]).
 //!
 //! Termination on scaled KKT residuals ([`Residuals`]); "solved" is only ever reported when the
 //! feasibility, stationarity and complementarity tolerances all hold.

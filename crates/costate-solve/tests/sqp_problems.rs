@@ -745,3 +745,21 @@ fn invalid_input_is_an_error_not_a_status() {
     let exact = SqpSettings { hessian: HessianMode::Exact, ..SqpSettings::default() };
     assert!(matches!(solve_nlp(&mut no_hessian, &exact, None, None), Err(SolveError::Problem(_))));
 }
+
+#[test]
+fn observer_sees_no_row_twice_when_the_solve_stops_mid_iteration() {
+    // The infeasible disc ends inside an iteration (elastic phase, local infeasibility), which
+    // produces no row of its own: the observer must not get the previous row again.
+    for mode in MODES {
+        let rows: Arc<Mutex<Vec<IterationRow>>> = Arc::default();
+        let sink = rows.clone();
+        let observer = Box::new(move |row: &IterationRow| sink.lock().unwrap().push(row.clone()));
+        let settings = SqpSettings { hessian: mode, ..SqpSettings::default() };
+        let r = solve_nlp(&mut infeasible_disc(), &settings, None, Some(observer)).unwrap();
+        assert!(matches!(r.status, SqpStatus::LocallyInfeasible { .. }), "{:?}", r.status);
+        let seen = rows.lock().unwrap();
+        assert_eq!(*seen, r.history, "{mode:?}");
+        let iterations: Vec<u64> = seen.iter().map(|row| row.iteration).collect();
+        assert!(iterations.windows(2).all(|w| w[1] == w[0] + 1), "{iterations:?}");
+    }
+}

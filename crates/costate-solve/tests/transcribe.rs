@@ -763,3 +763,20 @@ fn crane_transfer_solves_and_reports_timing() {
         elapsed, sol.iterations, sol.timing.evaluation, sol.timing.qp, sol.objective
     );
 }
+
+#[test]
+fn a_problem_too_large_for_memory_is_refused_before_anything_is_built() {
+    // A billion intervals would need far more than the default limit (4 GiB); the refusal
+    // must come from the estimate, before a mesh of that length is allocated.
+    let ocp = crane();
+    let huge = OcpSettings { intervals: 1_000_000_000, ..OcpSettings::default() };
+    let err = solve_ocp(&ocp, &huge, None, None, &mut |_| {}).expect_err("too large");
+    assert!(err.contains("too large") && err.contains("1000000000 intervals"), "{err}");
+    assert!(err.contains("memory_limit") && err.contains("4.00 GiB"), "{err}");
+    // The limit is a setting: 60 intervals fit in the default, not in 64 KiB.
+    let est = costate_solve::estimate_memory(&ocp, 60, &IntegratorSettings::default());
+    assert!(est.bytes < costate_solve::DEFAULT_MEMORY_LIMIT as f64 / 100.0, "{est}");
+    let tight = OcpSettings { intervals: 60, memory_limit: 64 << 10, ..OcpSettings::default() };
+    let err = solve_ocp(&ocp, &tight, None, None, &mut |_| {}).expect_err("over 64 KiB");
+    assert!(err.contains("60 intervals"), "{err}");
+}
