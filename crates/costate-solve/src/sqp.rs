@@ -836,18 +836,23 @@ impl Work {
         QpProblem {
             hessian: h,
             gradient: p.g.clone(),
-            jacobian: Triplets {
-                nrows: s.m,
-                ncols: s.n,
-                rows: s.jac.rows.clone(),
-                cols: s.jac.cols.clone(),
-                values: p.jac.clone(),
-            },
+            jacobian: jacobian_triplets(s, &p.jac),
             row_lower: (0..s.m).map(|i| s.cl[i] - p.c[i]).collect(),
             row_upper: (0..s.m).map(|i| s.cu[i] - p.c[i]).collect(),
             var_lower: (0..s.n).map(|j| s.yl[j] - p.y[j]).collect(),
             var_upper: (0..s.n).map(|j| s.yu[j] - p.y[j]).collect(),
         }
+    }
+}
+
+/// The scaled constraint Jacobian with values `jac` as QP triplets.
+fn jacobian_triplets(s: &Setup, jac: &[f64]) -> Triplets {
+    Triplets {
+        nrows: s.m,
+        ncols: s.n,
+        rows: s.jac.rows.clone(),
+        cols: s.jac.cols.clone(),
+        values: jac.to_vec(),
     }
 }
 
@@ -1157,13 +1162,7 @@ impl Sqp {
         let qp = QpProblem {
             hessian: identity(s.n),
             gradient: p.g.clone(),
-            jacobian: Triplets {
-                nrows: s.m,
-                ncols: s.n,
-                rows: s.jac.rows.clone(),
-                cols: s.jac.cols.clone(),
-                values: p.jac.clone(),
-            },
+            jacobian: jacobian_triplets(s, &p.jac),
             row_lower: (0..s.m)
                 .map(|i| if s.inequality[i] { f64::NEG_INFINITY } else { 0.0 })
                 .collect(),

@@ -261,6 +261,20 @@ impl Lcg {
     }
 }
 
+/// A pseudo-random point inside the variable bounds (away from positive lower bounds).
+fn random_point(nlp: &MultipleShooting, rng: &mut Lcg) -> Vec<f64> {
+    let n = nlp.num_variables();
+    let (mut lo, mut hi) = (vec![0.0; n], vec![0.0; n]);
+    nlp.variable_bounds(&mut lo, &mut hi);
+    (0..n)
+        .map(|j| {
+            let v = 0.8 * rng.next();
+            let v = if lo[j] > 0.0 { lo[j] + 0.5 + 0.3 * v } else { v };
+            v.max(lo[j]).min(hi[j])
+        })
+        .collect()
+}
+
 /// Compares the Jacobian and objective gradient with central differences at a random point
 /// inside the bounds.
 fn check_derivatives(free_end: bool, controls: ControlShape, seed: u64) {
@@ -268,16 +282,8 @@ fn check_derivatives(free_end: bool, controls: ControlShape, seed: u64) {
     let integ = IntegratorSettings { controls, substeps: 2, ..IntegratorSettings::default() };
     let mut nlp = MultipleShooting::new(&ocp, 5, integ).expect("valid problem");
     let (n, m) = (nlp.num_variables(), nlp.num_constraints());
-    let (mut lo, mut hi) = (vec![0.0; n], vec![0.0; n]);
-    nlp.variable_bounds(&mut lo, &mut hi);
     let mut rng = Lcg(seed);
-    let w: Vec<f64> = (0..n)
-        .map(|j| {
-            let v = 0.8 * rng.next();
-            let v = if lo[j] > 0.0 { lo[j] + 0.5 + 0.3 * v } else { v };
-            v.max(lo[j]).min(hi[j])
-        })
-        .collect();
+    let w = random_point(&nlp, &mut rng);
 
     let pattern = nlp.jacobian_pattern();
     assert_eq!(pattern.first_out_of_range(m, n), None);
@@ -347,16 +353,8 @@ fn check_hessian(free_end: bool, controls: ControlShape, seed: u64) {
     let mut nlp = MultipleShooting::new(&ocp, 4, integ).expect("valid problem");
     assert!(nlp.has_exact_hessian(), "RK4 with integrals entering linearly has a Hessian");
     let (n, m) = (nlp.num_variables(), nlp.num_constraints());
-    let (mut lo, mut hi) = (vec![0.0; n], vec![0.0; n]);
-    nlp.variable_bounds(&mut lo, &mut hi);
     let mut rng = Lcg(seed);
-    let w: Vec<f64> = (0..n)
-        .map(|j| {
-            let v = 0.8 * rng.next();
-            let v = if lo[j] > 0.0 { lo[j] + 0.5 + 0.3 * v } else { v };
-            v.max(lo[j]).min(hi[j])
-        })
-        .collect();
+    let w = random_point(&nlp, &mut rng);
     let lambda: Vec<f64> = (0..m).map(|_| rng.next()).collect();
     let sigma = 0.7;
     let jp = nlp.jacobian_pattern();
