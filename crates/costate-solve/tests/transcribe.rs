@@ -601,12 +601,10 @@ fn minimum_time_double_integrator() {
         // N = 102 on, hence 150 intervals for that case; see the report.
         let single_arc = x0 + v0 * v0.abs() / 2.0 == 0.0;
         let n = if single_arc { 150 } else { 50 };
-        // Block BFGS, as this test was written for. Known weakness of the exact Hessian here
-        // (see the status notes): the objective is linear in tf and the first exact Hessian
-        // carries almost no curvature in it, so the first step jumps tf to its lower bound and
-        // from (1, 1) the solve ends "locally infeasible" in the elastic phase.
-        let mut s = settings(n, ControlShape::Constant);
-        s.sqp.hessian = costate_solve::HessianMode::Bfgs;
+        // Default (automatic) Hessian. From (1, 1) the exact Hessian alone ends "locally
+        // infeasible" (the objective is linear in tf, the first step jumps tf to its lower
+        // bound); `solve_ocp` then retries with block BFGS, which is what this checks too.
+        let s = settings(n, ControlShape::Constant);
         let sol = solve(&ocp, &s);
         assert!(sol.status.is_solved(), "({x0}, {v0}): {:?}", sol.status);
         assert!(sol.max_violation < 1e-6);

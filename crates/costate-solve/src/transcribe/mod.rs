@@ -34,7 +34,7 @@ use costate_model::{FunctionKind, Ocp};
 
 use crate::integrate::IntegratorSettings;
 use crate::nlp::{EvalError, EvalPart, Nlp};
-use crate::settings::SqpSettings;
+use crate::settings::{HessianMode, SqpSettings};
 use crate::sqp::{solve_nlp, IterationRow, SqpResult, SqpStatus, StallReason, Timing};
 
 pub use layout::{decode_tag, function_tag, Layout, ViolationSource};
@@ -272,10 +272,48 @@ pub fn solve_ocp(
     if let Some(t) = warm {
         nlp.warm_start(t)?;
     }
-    // The SQP's observers must be 'static, the caller's is not: the solve runs on a scoped
-    // thread and its rows come back over a channel, so the caller still sees them live.
-    let sqp_settings = &settings.sqp;
-    let nlp_ref = &mut nlp;
+    let started = std::time::Instant::now();
+    let mut result = run(&mut nlp, &settings.sqp, cancel.clone(), observer)?;
+    // Safeguard of the automatic mode: the exact Hessian converges fast where it converges,
+    // but with little curvature at the start (an objective linear in a free end time) its
+    // first steps can jump to a bound and end at a stationary point of the violation. Block
+    // BFGS, which starts from the identity, then gets one attempt of its own from the start.
+    let retry = settings.sqp.hessian == HessianMode::Auto
+        && nlp.has_exact_hessian()
+        && matches!(
+            result.status,
+            SqpStatus::LocallyInfeasible { .. }
+                | SqpStatus::Stalled { .. }
+                | SqpStatus::IterationLimit
+        );
+    let left = settings.sqp.time_limit - started.elapsed().as_secs_f64();
+    if retry && left > 0.0 {
+        let first = result;
+        let sqp = SqpSettings { time_limit: left, ..settings.sqp.clone() };
+        nlp = nlp.without_exact_hessian();
+        let mut second = run(&mut nlp, &sqp, cancel, observer)?;
+        second.iterations += first.iterations;
+        second.timing.evaluation += first.timing.evaluation;
+        second.timing.qp += first.timing.qp;
+        second.timing.other += first.timing.other;
+        second.timing.total += first.timing.total;
+        let mut history = first.history;
+        history.append(&mut second.history);
+        second.history = history;
+        result = second;
+    }
+    Ok(report(&mut nlp, result))
+}
+
+/// One SQP solve of `nlp`. The SQP's observers must be 'static, the caller's is not: the
+/// solve runs on a scoped thread and its rows come back over a channel, so the caller still
+/// sees them live.
+fn run(
+    nlp: &mut MultipleShooting,
+    settings: &SqpSettings,
+    cancel: Option<Arc<AtomicBool>>,
+    observer: &mut dyn FnMut(&IterationRow),
+) -> Result<SqpResult, String> {
     let outcome = std::thread::scope(|scope| {
         let (tx, rx) = mpsc::channel::<IterationRow>();
         let handle = scope.spawn(move || {
@@ -283,25 +321,18 @@ pub fn solve_ocp(
                 // A closed receiver only means nobody listens any more.
                 let _ = tx.send(row.clone());
             });
-            solve_nlp(nlp_ref, sqp_settings, cancel, Some(obs))
+            solve_nlp(nlp, settings, cancel, Some(obs))
         });
-        // The SQP may hand the same row to its observer twice (e.g. when it stops without a
-        // new iterate); the caller sees each iteration once.
-        let mut last = None;
         for row in rx {
-            if last != Some(row.iteration) {
-                last = Some(row.iteration);
-                observer(&row);
-            }
+            observer(&row);
         }
         handle.join()
     });
-    let result = match outcome {
-        Ok(Ok(r)) => r,
-        Ok(Err(e)) => return Err(e.to_string()),
-        Err(_) => return Err("internal error: the solver thread panicked".into()),
-    };
-    Ok(report(&mut nlp, result))
+    match outcome {
+        Ok(Ok(r)) => Ok(r),
+        Ok(Err(e)) => Err(e.to_string()),
+        Err(_) => Err("internal error: the solver thread panicked".into()),
+    }
 }
 
 /// The solution in the problem's terms.
