@@ -59,7 +59,7 @@ async fn main() {
     let dynamics = text.lines().position(|l| l.starts_with("  v100' =")).unwrap() as u32;
 
     let mut diagnostics = Vec::new();
-    for version in 2..=32i64 {
+    for version in 2..=33i64 {
         // Alternately break (`qv100'`: no such state) and repair one line mid-file.
         let change = if version % 2 == 0 {
             json!([{ "range": { "start": at(dynamics, 2), "end": at(dynamics, 2) }, "text": "q" }])
@@ -76,7 +76,7 @@ async fn main() {
     let mut hovers = Vec::new();
     let mut completions = Vec::new();
     for _ in 0..51 {
-        let position = json!({ "textDocument": { "uri": uri }, "position": at(dynamics, 9) });
+        let position = json!({ "textDocument": { "uri": uri }, "position": at(dynamics, 12) });
         let start = Instant::now();
         let hover = client.request("textDocument/hover", position.clone()).await;
         hovers.push(start.elapsed());
