@@ -1177,6 +1177,66 @@ impl Sqp {
         Ok(if ok { sol.row_multipliers } else { vec![0.0; s.m] })
     }
 
+    /// Replace the multipliers by those that minimise the stationarity residual at the current
+    /// point with the current active set (rows and bounds within `10 *
+    /// feasibility_tolerance` of a side), if they leave a smaller residual. They come from the
+    /// QP `min 1/2 d'd + g'd` with `J_i d = 0` on active equality rows, `J_i d <= 0` (`>= 0`)
+    /// on rows at their upper (lower) side, and `d_j <= 0` (`>= 0`) on variables at their
+    /// upper (lower) bound: its optimality conditions make `-d` the Lagrangian gradient with
+    /// multipliers of the right signs, so `|d|_inf` is the smallest residual the active set
+    /// allows. This removes the stationarity floor left by multipliers of the previous
+    /// linearisation where the Lagrangian Hessian is nearly singular (singular arcs).
+    fn least_squares_kkt(&mut self) -> Result<(), ArgminError> {
+        let tol = 10.0 * self.settings.feasibility_tolerance;
+        let Some(wk) = &self.work else { return Ok(()) };
+        let s = &wk.setup;
+        let p = &wk.point;
+        let near = |v: f64, b: f64| b.is_finite() && (v - b).abs() <= tol * b.abs().max(1.0);
+        let mut row_lower = vec![f64::NEG_INFINITY; s.m];
+        let mut row_upper = vec![f64::INFINITY; s.m];
+        for i in 0..s.m {
+            if !s.inequality[i] {
+                (row_lower[i], row_upper[i]) = (0.0, 0.0);
+            } else if near(p.c[i], s.cu[i]) {
+                row_upper[i] = 0.0;
+            } else if near(p.c[i], s.cl[i]) {
+                row_lower[i] = 0.0;
+            }
+        }
+        let mut var_lower = vec![f64::NEG_INFINITY; s.n];
+        let mut var_upper = vec![f64::INFINITY; s.n];
+        for j in 0..s.n {
+            if near(p.y[j], s.yu[j]) {
+                var_upper[j] = 0.0;
+            }
+            if near(p.y[j], s.yl[j]) {
+                var_lower[j] = 0.0;
+            }
+        }
+        let qp = QpProblem {
+            hessian: identity(s.n),
+            gradient: p.g.clone(),
+            jacobian: jacobian_triplets(s, &p.jac),
+            row_lower,
+            row_upper,
+            var_lower,
+            var_upper,
+        };
+        let (sol, _) = self.solve_qp(&qp)?;
+        if !sol.status.has_solution() {
+            return Ok(());
+        }
+        let Some(wk) = self.work.as_mut() else { return Ok(()) };
+        let before = residuals(&wk.setup, &wk.point, &wk.lambda, &wk.nu);
+        let after = residuals(&wk.setup, &wk.point, &sol.row_multipliers, &sol.bound_multipliers);
+        let score = |r: &Residuals| r.stationarity.max(r.complementarity);
+        if score(&after) < score(&before) {
+            wk.lambda = sol.row_multipliers;
+            wk.nu = sol.bound_multipliers;
+        }
+        Ok(())
+    }
+
     /// Proximal QP on the l1 violation alone: a tiny step means the violation is stationary.
     fn violation_is_stationary(&mut self) -> Result<bool, ArgminError> {
         let Some(wk) = &self.work else { return Ok(false) };
@@ -1653,6 +1713,14 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         }
 
         self.publish(&mut state);
+        if state.residuals.violation <= st.feasibility_tolerance
+            && state.residuals.stationarity > st.stationarity_tolerance
+        {
+            // Feasible but not yet stationary by the QP's multipliers, which belong to the
+            // previous linearisation: try the multipliers that fit this point best.
+            self.least_squares_kkt()?;
+            self.publish(&mut state);
+        }
         row.objective = state.objective;
         row.residuals = state.residuals;
         row.penalty = state.penalty;
