@@ -102,13 +102,17 @@ fn main() {
     let sol = last.expect("at least one run");
     println!(
         "crane_transfer, 60 intervals: median {:.1} ms over {runs} solves (min {:.1}, max {:.1}); \
-         {} SQP iterations, status {:?}, end time {:.5} s, objective {:.6}",
+         {} SQP iterations, status {:?}, end time {:.5} s, objective {:.6}; last solve: \
+         evaluation {:.1} ms, QP {:.1} ms, other {:.1} ms",
         times[runs / 2].as_secs_f64() * 1e3,
         times[0].as_secs_f64() * 1e3,
         times[runs - 1].as_secs_f64() * 1e3,
         sol.iterations,
         sol.status,
         sol.trajectory.end_time,
-        sol.objective
+        sol.objective,
+        sol.timing.evaluation.as_secs_f64() * 1e3,
+        sol.timing.qp.as_secs_f64() * 1e3,
+        sol.timing.other.as_secs_f64() * 1e3
     );
 }
