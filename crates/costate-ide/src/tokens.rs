@@ -149,3 +149,31 @@ fn classify(
         || text == "cost";
     is_keyword.then_some(TokenType::Keyword)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The language server sends `token_type as usize` as the legend index.
+    #[test]
+    fn token_types_are_declared_in_legend_order() {
+        let all = [
+            TokenType::Keyword,
+            TokenType::Variable,
+            TokenType::Parameter,
+            TokenType::Function,
+            TokenType::Number,
+            TokenType::Comment,
+            TokenType::Operator,
+            TokenType::Type,
+            TokenType::Property,
+            TokenType::EnumMember,
+        ];
+        assert_eq!(all.len(), TOKEN_TYPES.len());
+        for t in all {
+            let name = format!("{t:?}");
+            let legend = TOKEN_TYPES[t as usize];
+            assert!(name.eq_ignore_ascii_case(legend), "{name} is sent as `{legend}`");
+        }
+    }
+}

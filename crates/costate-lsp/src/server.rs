@@ -4,7 +4,7 @@
 
 use std::collections::HashMap;
 use std::path::PathBuf;
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::{Arc, Mutex, MutexGuard};
 
 use costate_driver::Overrides;
@@ -24,6 +24,8 @@ use crate::convert;
 use crate::documents::Documents;
 use crate::solving::{self, Outcome};
 use crate::summary;
+
+static NEXT_PROGRESS_TOKEN: AtomicU64 = AtomicU64::new(1);
 
 /// The name of the custom request returning the latest solution document of a file.
 pub const SOLUTION_REQUEST: &str = "costate/solution";
@@ -174,7 +176,11 @@ impl Backend {
             .map(|p| p.display().to_string())
             .unwrap_or_else(|| uri.as_str().to_string());
         let progress = if support.progress {
-            let token = NumberOrString::String(format!("costate-solve-{generation}"));
+            // Unique across files and saves: the client matches progress reports by token.
+            let token = NumberOrString::String(format!(
+                "costate-solve-{}",
+                NEXT_PROGRESS_TOKEN.fetch_add(1, Ordering::Relaxed)
+            ));
             let created = self
                 .client
                 .send_request::<WorkDoneProgressCreate>(WorkDoneProgressCreateParams {
@@ -695,6 +701,8 @@ impl LanguageServer for Backend {
     }
 }
 
+/// The index of `t` in the legend: `TokenType` is declared in the order of `TOKEN_TYPES`
+/// (a test in costate-ide keeps them in step).
 fn token_index(t: TokenType) -> u32 {
     t as u32
 }
