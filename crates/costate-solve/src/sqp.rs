@@ -1514,8 +1514,34 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         let violation_l1 = l1_violation(&wk.setup, &wk.point.c);
         // Huge multipliers mean nearly inconsistent linearised constraints: the step would be
         // long and the penalty would explode, so take the elastic step instead.
-        let exploding = sol.status.has_solution()
+        let mut exploding = sol.status.has_solution()
             && inf_norm(&sol.row_multipliers) > st.elastic_multiplier_limit;
+        let exact = wk.bfgs.is_none();
+        if exact && (exploding || !sol.status.has_solution()) {
+            // An exact Hessian with (nearly) zero curvature in some directions (singular arcs)
+            // can leave the QP too degenerate for the interior-point method. A proximal term
+            // restores its conditioning at the cost of a shorter step; try it before giving
+            // up on the linearisation.
+            let diag = (0..qp.hessian.nnz())
+                .filter(|&k| qp.hessian.rows[k] == qp.hessian.cols[k])
+                .fold(1.0_f64, |a, k| a.max(qp.hessian.values[k].abs()));
+            let mut proximal = qp.clone();
+            for j in 0..n {
+                proximal.hessian.push(j, j, 1e-3 * diag);
+            }
+            let (psol, dt) = self.solve_qp(&proximal)?;
+            qp_time += dt;
+            qp_iterations += psol.iterations;
+            let p_exploding = psol.status.has_solution()
+                && inf_norm(&psol.row_multipliers) > st.elastic_multiplier_limit;
+            if psol.status.has_solution() && !p_exploding {
+                sol = psol;
+                qp = proximal;
+                exploding = false;
+                hessian_shift = 1e-3 * diag;
+            }
+        }
+        let wk = self.work.as_ref().ok_or_else(uninit)?;
         if exploding || (!sol.status.has_solution() && sol.status != QpStatus::Unbounded) {
             if wk.setup.m > 0 && violation_l1 > 0.0 && self.violation_is_stationary()? {
                 let wk = self.work.as_ref().ok_or_else(uninit)?;
