@@ -11,7 +11,7 @@ use std::sync::{Arc, Mutex};
 
 use costate_solve::{
     log_header, log_line, solve_nlp, EvalError, EvalFailure, EvalPart, HessianMode, IterationRow,
-    Nlp, Pattern, SolveError, SqpResult, SqpSettings, SqpStatus, StepKind,
+    Nlp, Pattern, SolveError, SqpResult, SqpSettings, SqpStatus, StallReason, StepKind,
 };
 use support::{TestNlp, INF};
 
@@ -761,5 +761,33 @@ fn observer_sees_no_row_twice_when_the_solve_stops_mid_iteration() {
         assert_eq!(*seen, r.history, "{mode:?}");
         let iterations: Vec<u64> = seen.iter().map(|row| row.iteration).collect();
         assert!(iterations.windows(2).all(|w| w[1] == w[0] + 1), "{iterations:?}");
+    }
+}
+
+/// min |x - 0.3| (not differentiable at its minimum; the gradient is the sign): no point meets
+/// the stationarity test, the line search cuts every step near the kink, and the solve must
+/// stop on its stagnation test, close to 0.3, long before the iteration limit, without
+/// claiming a solution.
+fn kink() -> TestNlp {
+    TestNlp::new(
+        vec![2.0],
+        Box::new(|x| (x[0] - 0.3).abs()),
+        Box::new(|x, g| g[0] = (x[0] - 0.3).signum()),
+    )
+    .hessian(Box::new(|_, _, _, h| h[0] = 0.0))
+}
+
+#[test]
+fn stagnation_stops_a_crawl_with_an_honest_status() {
+    for mode in MODES {
+        let r = solve(&mut kink(), mode);
+        assert_eq!(
+            r.status,
+            SqpStatus::Stalled { reason: StallReason::NoProgress },
+            "{mode:?} after {} iterations",
+            r.iterations
+        );
+        assert!(r.iterations < 100, "{mode:?}: {} iterations", r.iterations);
+        assert!((r.x[0] - 0.3).abs() < 1e-3, "{mode:?}: {:?}", r.x);
     }
 }
