@@ -416,14 +416,8 @@ impl LanguageServer for Backend {
     }
 
     async fn did_save(&self, params: DidSaveTextDocumentParams) {
-        let uri = params.text_document.uri;
-        if let Some(text) = params.text {
-            if let Some(doc) = self.state().documents.get_mut(&uri) {
-                doc.text = text;
-                doc.version += 1;
-            }
-        }
-        self.start_solve(uri).await;
+        // The saved text is the synchronised text (we ask clients not to resend it).
+        self.start_solve(params.text_document.uri).await;
     }
 
     async fn did_close(&self, params: DidCloseTextDocumentParams) {
