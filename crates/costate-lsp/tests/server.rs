@@ -590,3 +590,33 @@ async fn solve_on_save_can_be_switched_off() {
     assert_eq!(client.request("costate/solution", json!({ "uri": uri })).await, Value::Null);
     assert!(!client.seen.iter().any(|m| m["method"] == "window/workDoneProgress/create"));
 }
+
+#[tokio::test]
+async fn hover_after_a_solve_says_which_bounds_and_constraints_are_active() {
+    // Unconstrained, u = 6 - 12 t reaches ±6 and v peaks at 1.5: both limits below bind. The
+    // interior-point QP leaves tiny multipliers on inactive rows, so the constraint's verdict is
+    // a real test of the threshold in the server.
+    let text = HOP
+        .replace("u [m/s^2]: in -10 .. 10", "u [m/s^2]: in -5 .. 5")
+        .replace("solve {", "path {\n  speed: v <= 1.3\n}\n\nsolve {");
+    let (mut client, _dir, uri) = on_disk("active", &text, json!(null)).await;
+    client.save(&uri).await;
+    check(client.solve_finished().await, expect!["locally infeasible"]);
+    let line_of = |needle: &str| text.lines().position(|l| l.contains(needle)).unwrap() as u32;
+    let mut hover = async |line, character| {
+        let h = client
+            .request(
+                "textDocument/hover",
+                json!({ "textDocument": { "uri": uri }, "position": at(line, character) }),
+            )
+            .await;
+        h["contents"]["value"].as_str().unwrap_or("(none)").to_string()
+    };
+    let control = hover(line_of("u [m/s^2]"), 2).await;
+    assert!(control.contains("lower and upper bound active"), "{control}");
+    let speed = hover(line_of("speed:"), 3).await;
+    check(speed, expect![[r#"
+        **path constraint** `speed`
+
+        solution: active (nonzero multiplier)"#]]);
+}
