@@ -615,8 +615,11 @@ async fn hover_after_a_solve_says_which_bounds_and_constraints_are_active() {
     let control = hover(line_of("u [m/s^2]"), 2).await;
     assert!(control.contains("lower and upper bound active"), "{control}");
     let speed = hover(line_of("speed:"), 3).await;
-    check(speed, expect![[r#"
+    check(
+        speed,
+        expect![[r#"
         **path constraint** `speed`
 
-        solution: active (nonzero multiplier)"#]]);
+        solution: active (nonzero multiplier)"#]],
+    );
 }
