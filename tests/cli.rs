@@ -171,3 +171,59 @@ fn a_function_undefined_at_the_guess_is_reported_on_its_line() {
     assert!(stderr.contains("E1001"), "{stderr}");
     assert!(stderr.contains("nan.costate:8:"), "points at the dynamics line: {stderr}");
 }
+
+/// Writes `source` to a scratch file and solves it; returns (exit code, stderr, stdout).
+fn solve_text(name: &str, source: &str, extra: &[&str]) -> (Option<i32>, String, String) {
+    let dir = temp_dir(name);
+    let file = dir.join(format!("{name}.costate"));
+    std::fs::write(&file, source).unwrap();
+    let mut args = vec!["solve", file.to_str().unwrap(), "--quiet", "--out", dir.to_str().unwrap()];
+    args.extend_from_slice(extra);
+    let out = costate(&args);
+    let _ = std::fs::remove_dir_all(&dir);
+    (out.status.code(), text(&out.stderr), text(&out.stdout))
+}
+
+#[test]
+fn inconsistent_boundary_conditions_are_reported_once_on_the_boundary_line() {
+    // The state ends at 1 m, the boundary relation demands 3 m: no trajectory meets both.
+    let (code, stderr, stdout) = solve_text(
+        "inconsistent",
+        "problem inconsistent\ntime t [s]: start 0, end 2\nstate {\n  x [m]: start 0, end 1\n  v [m/s]: start 0, end 0\n}\ncontrol { a [m/s^2]: in -1 .. 1 }\ndynamics {\n  x' = v\n  v' = a\n}\ncost { minimize integral(a^2) }\nboundary {\n  arrive_far: end(x) == 3 [m]\n}\n",
+        &[],
+    );
+    assert_eq!(code, Some(1), "{stdout}{stderr}");
+    assert!(stdout.contains("locally infeasible"), "{stdout}");
+    assert!(stderr.contains("inconsistent.costate:14:"), "points at the boundary line: {stderr}");
+    assert!(stderr.contains("`arrive_far` stays violated by up to 2"), "{stderr}");
+    // Rounding-level leftovers elsewhere are not reported as causes.
+    assert_eq!(stderr.matches("[E1002]").count(), 1, "{stderr}");
+}
+
+#[test]
+fn an_unbounded_cost_names_the_variable_without_a_bound() {
+    let (code, stderr, stdout) = solve_text(
+        "runaway",
+        "problem runaway\ntime t [s]: start 0, end 1\nstate {\n  x: start 0, end free\n}\ncontrol { u }\ndynamics {\n  x' = u\n}\ncost { maximize end(x) }\n",
+        &[],
+    );
+    assert_eq!(code, Some(1), "{stdout}{stderr}");
+    assert!(!stdout.contains("status      solved"), "{stdout}");
+    assert!(stderr.contains("[E1003]"), "{stderr}");
+    assert!(stderr.contains("control `u` grew to"), "{stderr}");
+    assert!(stderr.contains("runaway.costate:6:"), "points at the control: {stderr}");
+}
+
+#[test]
+fn a_problem_too_large_for_memory_is_refused_with_its_size() {
+    // 20 states and 10 controls on 100,000 intervals: tens of GiB of derivatives and QP
+    // factors, far above the default limit; refused before anything is allocated.
+    let (code, stderr, stdout) = solve_text(
+        "huge",
+        "problem huge\ntime t [s]: start 0, end 1\nstate {\n  x0: start 0, end 1\n  x1: start 0, end 1\n  x2: start 0, end 1\n  x3: start 0, end 1\n  x4: start 0, end 1\n  x5: start 0, end 1\n  x6: start 0, end 1\n  x7: start 0, end 1\n  x8: start 0, end 1\n  x9: start 0, end 1\n  x10: start 0, end 1\n  x11: start 0, end 1\n  x12: start 0, end 1\n  x13: start 0, end 1\n  x14: start 0, end 1\n  x15: start 0, end 1\n  x16: start 0, end 1\n  x17: start 0, end 1\n  x18: start 0, end 1\n  x19: start 0, end 1\n}\ncontrol {\n  u0: in -1 .. 1\n  u1: in -1 .. 1\n  u2: in -1 .. 1\n  u3: in -1 .. 1\n  u4: in -1 .. 1\n  u5: in -1 .. 1\n  u6: in -1 .. 1\n  u7: in -1 .. 1\n  u8: in -1 .. 1\n  u9: in -1 .. 1\n}\ndynamics {\n  x0' = x1 * u0\n  x1' = x2 * u1\n  x2' = x3 * u2\n  x3' = x4 * u3\n  x4' = x5 * u4\n  x5' = x6 * u5\n  x6' = x7 * u6\n  x7' = x8 * u7\n  x8' = x9 * u8\n  x9' = x10 * u9\n  x10' = x11 * u0\n  x11' = x12 * u1\n  x12' = x13 * u2\n  x13' = x14 * u3\n  x14' = x15 * u4\n  x15' = x16 * u5\n  x16' = x17 * u6\n  x17' = x18 * u7\n  x18' = x19 * u8\n  x19' = x0 * u9\n}\ncost { minimize integral(u0^2 + u1^2 + u2^2 + u3^2 + u4^2 + u5^2 + u6^2 + u7^2 + u8^2 + u9^2) }\n",
+        &["--intervals", "100000"],
+    );
+    assert_ne!(code, Some(0), "{stdout}{stderr}");
+    assert!(stderr.contains("memory"), "names the memory limit: {stderr}");
+    assert!(!stderr.contains("panicked"), "{stderr}");
+}

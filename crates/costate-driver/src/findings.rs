@@ -1,9 +1,11 @@
 //! Solver findings as diagnostics on the source lines that caused them: the function that
 //! could not be evaluated, or the constraints that stayed violated.
 
+use costate_model::Bounds;
 use costate_model::FunctionKind;
-use costate_solve::transcribe::{OcpSolution, OcpStatus, ViolationSource};
+use costate_solve::transcribe::{OcpSolution, OcpStatus, Violation, ViolationSource};
 use costate_syntax::Diagnostic;
+use costate_syntax::Span;
 
 use crate::Loaded;
 
@@ -38,48 +40,10 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
             );
         }
         OcpStatus::LocallyInfeasible { violations } => {
-            for v in violations.iter().take(5) {
-                let (span, what) = match v.what {
-                    ViolationSource::Function(kind, row) => map
-                        .locate(kind, row)
-                        .unwrap_or((map.problem_span, describe_kind(kind).to_string())),
-                    ViolationSource::Continuity(i) => {
-                        let s = &map.states[i];
-                        (
-                            s.name_span,
-                            format!("the dynamics of `{}` (continuity between intervals)", s.name),
-                        )
-                    }
-                    ViolationSource::StateBound(i) => {
-                        let s = &map.states[i];
-                        (s.decl_span, format!("the bounds of state `{}`", s.name))
-                    }
-                    ViolationSource::ControlBound(i) => {
-                        let s = &map.controls[i];
-                        (s.decl_span, format!("the bounds of control `{}`", s.name))
-                    }
-                    ViolationSource::ParamBound(i) => {
-                        let s = &map.params[i];
-                        (s.decl_span, format!("the bounds of parameter `{}`", s.name))
-                    }
-                    ViolationSource::EndTime => {
-                        (map.time.decl_span, format!("the end of `{}`", map.time.name))
-                    }
-                };
-                out.push(
-                    Diagnostic::new(
-                        crate::codes::CONSTRAINT_VIOLATED,
-                        format!(
-                            "{what} stays violated by {}{}",
-                            crate::report::sig(v.amount, 3),
-                            node_time(v.node).unwrap_or_default()
-                        ),
-                        span,
-                        "cannot be met together with the other constraints",
-                    )
-                    .with_help("the problem looks infeasible here: check that bounds, start and end values and constraints can hold at once"),
-                );
-            }
+            out.extend(violated_constraints(loaded, solution, violations));
+        }
+        OcpStatus::IterationLimit | OcpStatus::TimeLimit | OcpStatus::Stalled(_) => {
+            out.extend(runaway_variables(loaded, solution));
         }
         _ => {}
     }
@@ -94,4 +58,162 @@ fn describe_kind(kind: FunctionKind) -> &'static str {
         FunctionKind::Objective => "the cost",
         FunctionKind::Boundary => "a boundary constraint",
     }
+}
+
+/// At most this many violated constraints are reported, the worst first.
+const MAX_REPORTED_CONSTRAINTS: usize = 5;
+
+/// Violations smaller than this fraction of the worst one are left out: they are the
+/// consequence of the worst ones (the solver trades them off), not separate causes.
+const MINOR_VIOLATION_FRACTION: f64 = 1e-3;
+
+/// One diagnostic per violated constraint or bound of the source (not per node), with the
+/// largest amount and the nodes where it is violated.
+fn violated_constraints(
+    loaded: &Loaded,
+    solution: &OcpSolution,
+    violations: &[Violation],
+) -> Vec<Diagnostic> {
+    let map = &loaded.lowered.source_map;
+    let worst = violations.iter().map(|v| v.amount).fold(0.0_f64, f64::max);
+    // (span, description, largest amount, nodes) in order of first appearance, worst first.
+    let mut groups: Vec<(Span, String, f64, Vec<usize>)> = Vec::new();
+    let mut sorted: Vec<&Violation> = violations.iter().collect();
+    sorted.sort_by(|a, b| b.amount.total_cmp(&a.amount));
+    for v in sorted {
+        if v.amount < MINOR_VIOLATION_FRACTION * worst {
+            continue;
+        }
+        let (span, what) = describe_violation(loaded, v.what);
+        match groups.iter_mut().find(|g| g.0 == span && g.1 == what) {
+            Some(group) => {
+                group.2 = group.2.max(v.amount);
+                group.3.extend(v.node);
+            }
+            None => groups.push((span, what, v.amount, v.node.into_iter().collect())),
+        }
+    }
+    let time = &map.time;
+    let at_time = |k: usize| {
+        let t = solution.trajectory.times.get(k).copied().unwrap_or(f64::NAN);
+        crate::report::with_unit(time.to_user(t), time.unit.as_deref())
+    };
+    groups
+        .into_iter()
+        .take(MAX_REPORTED_CONSTRAINTS)
+        .map(|(span, what, amount, mut nodes)| {
+            nodes.sort_unstable();
+            nodes.dedup();
+            let place = match nodes.as_slice() {
+                [] => String::new(),
+                [k] => format!(" at node {k} ({} = {})", time.name, at_time(*k)),
+                [first, .., last] => format!(
+                    " at {} nodes ({} from {} to {})",
+                    nodes.len(),
+                    time.name,
+                    at_time(*first),
+                    at_time(*last)
+                ),
+            };
+            Diagnostic::new(
+                crate::codes::CONSTRAINT_VIOLATED,
+                format!("{what} stays violated by up to {}{place}", crate::report::sig(amount, 3)),
+                span,
+                "cannot be met together with the other constraints",
+            )
+            .with_help("the problem looks infeasible here: check that bounds, start and end values and constraints can hold at once")
+        })
+        .collect()
+}
+
+fn describe_violation(loaded: &Loaded, source: ViolationSource) -> (Span, String) {
+    let map = &loaded.lowered.source_map;
+    match source {
+        ViolationSource::Function(kind, row) => {
+            map.locate(kind, row).unwrap_or((map.problem_span, describe_kind(kind).to_string()))
+        }
+        ViolationSource::Continuity(i) => {
+            let s = &map.states[i];
+            (s.decl_span, format!("the dynamics of `{}` (continuity between intervals)", s.name))
+        }
+        ViolationSource::StateBound(i) => {
+            let s = &map.states[i];
+            (s.decl_span, format!("the bounds of state `{}`", s.name))
+        }
+        ViolationSource::ControlBound(i) => {
+            let s = &map.controls[i];
+            (s.decl_span, format!("the bounds of control `{}`", s.name))
+        }
+        ViolationSource::ParamBound(i) => {
+            let s = &map.params[i];
+            (s.decl_span, format!("the bounds of parameter `{}`", s.name))
+        }
+        ViolationSource::EndTime => (map.time.decl_span, format!("the end of `{}`", map.time.name)),
+    }
+}
+
+/// A variable this many times its typical magnitude (its scale) with no bound in that
+/// direction is taken as running away: the sign of a cost that improves without limit.
+/// Common practice for divergence checks, not a published constant.
+const RUNAWAY_FACTOR: f64 = 1e6;
+
+/// After a solve that did not converge: the variables that grew far beyond their scale in a
+/// direction with no bound, which usually means the cost is unbounded.
+fn runaway_variables(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
+    let map = &loaded.lowered.source_map;
+    let ocp = &loaded.lowered.ocp;
+    let traj = &solution.trajectory;
+    let mut out = Vec::new();
+    let mut check = |kind: &str,
+                     source: &costate_lower::VarSource,
+                     bounds: &Bounds,
+                     scale: f64,
+                     values: &[f64]| {
+        let Some(extreme) = values
+            .iter()
+            .copied()
+            .filter(|v| v.is_finite())
+            .max_by(|a, b| a.abs().total_cmp(&b.abs()))
+        else {
+            return;
+        };
+        let unbounded_that_way =
+            if extreme > 0.0 { bounds.hi == f64::INFINITY } else { bounds.lo == f64::NEG_INFINITY };
+        if !unbounded_that_way || extreme.abs() <= RUNAWAY_FACTOR * scale.abs().max(1.0) {
+            return;
+        }
+        let side = if extreme > 0.0 { "upper" } else { "lower" };
+        out.push(
+            Diagnostic::new(
+                crate::codes::COST_MAY_BE_UNBOUNDED,
+                format!(
+                    "{kind} `{}` grew to {} with no {side} bound: the cost may improve without limit",
+                    source.name,
+                    crate::report::with_unit(source.to_user(extreme), source.unit.as_deref())
+                ),
+                source.decl_span,
+                format!("no {side} bound"),
+            )
+            .with_help(format!(
+                "bound `{}` (`in LO .. HI`), or make the cost penalise it (e.g. a term in `integral(..)` that grows with it)",
+                source.name
+            )),
+        );
+    };
+    for (i, info) in ocp.states.iter().enumerate() {
+        if let (Some(source), Some(values)) = (map.states.get(i), traj.states.get(i)) {
+            check("state", source, &info.bounds, info.scale, values);
+        }
+    }
+    for (i, info) in ocp.controls.iter().enumerate() {
+        if let (Some(source), Some(values)) = (map.controls.get(i), traj.controls.get(i)) {
+            check("control", source, &info.bounds, info.scale, values);
+        }
+    }
+    for (i, info) in ocp.params.iter().enumerate() {
+        if let (Some(source), Some(value)) = (map.params.get(i), traj.params.get(i)) {
+            check("parameter", source, &info.bounds, info.scale, std::slice::from_ref(value));
+        }
+    }
+    out
 }

@@ -4,6 +4,7 @@
 
 use costate_lower::{SourceMap, VarSource};
 use costate_solve::transcribe::{OcpSolution, OcpStatus};
+use costate_solve::StallReason;
 use serde_json::{json, Value};
 
 use crate::Loaded;
@@ -45,8 +46,13 @@ pub fn status_label(status: &OcpStatus) -> &'static str {
         OcpStatus::TimeLimit => "time limit reached",
         OcpStatus::EvaluationFailed(_) => "function evaluation failed",
         OcpStatus::Interrupted => "interrupted",
-        #[allow(unreachable_patterns)]
-        _ => "stopped without a solution",
+        OcpStatus::Stalled(StallReason::LineSearch) => {
+            "stalled: no step length lowers the merit function"
+        }
+        OcpStatus::Stalled(StallReason::Qp(_)) => {
+            "stalled: the QP subproblem has no usable solution"
+        }
+        OcpStatus::Stalled(StallReason::NoProgress) => "stalled: steps no longer make progress",
     }
 }
 
