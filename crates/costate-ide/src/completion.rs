@@ -164,6 +164,10 @@ pub fn completions(analysis: &Analysis, offset: usize) -> Vec<CompletionItem> {
         }
         Some(_) => names(analysis, offset, &mut out),
     }
+    // After `:` in a declaration, `start` and `end` are attribute words; the built-ins of the
+    // same names would only show up twice.
+    let mut seen = std::collections::HashSet::new();
+    out.retain(|item| seen.insert(item.label.clone()));
     out
 }
 

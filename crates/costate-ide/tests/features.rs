@@ -173,6 +173,10 @@ fn completion_in_each_context() {
     for expected in ["start", "end", "in", "guess", "scale", "free", "g", "half", "sin"] {
         assert!(words.contains(&expected), "`{expected}` missing: {after_colon}");
     }
+    for once in ["start", "end"] {
+        let count = words.iter().filter(|w| **w == once).count();
+        assert_eq!(count, 1, "`{once}` offered {count} times: {after_colon}");
+    }
     // A function's parameters are in scope inside it only.
     let inside = labels(&SOURCE.replacen("limit * tanh", "$0 limit * tanh", 1));
     assert!(inside.contains(" limit ") && inside.contains(" value "), "{inside}");
