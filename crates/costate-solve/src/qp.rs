@@ -234,7 +234,7 @@ impl Default for ClarabelQpSettings {
 
 /// [`QpSolver`] on the Clarabel interior-point solver (sparse LDL of the KKT system).
 ///
-/// Clarabel solves `min 1/2 x'Px + q'x  s.t.  Ax + s = b, s in K`. Each two-sided row becomes
+/// Clarabel solves `min 1/2 x'Px + q'x  subject to  Ax + s = b, s in K`. Each two-sided row becomes
 /// up to two rows of the nonnegative cone (`a'd <= u` and `-a'd <= -l`); each equality row
 /// (`l == u`) one row of the zero cone; absent bounds produce no row.
 #[derive(Clone, Debug, Default)]
@@ -409,7 +409,7 @@ fn classify(
 mod tests {
     use super::*;
 
-    /// min 1/2 (d0^2 + d1^2) - d0 - d1  s.t. d0 + d1 <= 1, d0 >= 0.75 ... solved by hand:
+    /// min 1/2 (d0^2 + d1^2) - d0 - d1  subject to d0 + d1 <= 1, d0 >= 0.75 ... solved by hand:
     /// KKT with both constraints active gives d = (0.75, 0.25); the row multiplier is
     /// 1 - d1 = 0.75 and the bound multiplier on d0 is -(d0 - 1 + 0.75) = -0.5
     /// (independent computation).

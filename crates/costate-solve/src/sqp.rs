@@ -10,7 +10,7 @@
 //!    variable blocks) each diagonal block projected onto the positive definite matrices, else
 //!    a diagonal shift; so every QP is strictly convex. The first exact Hessian uses
 //!    least-squares multipliers (zero ones would drop the constraints' curvature).
-//! 2. QP `min 1/2 d'Bd + g'd  s.t.  cl <= c + J d <= cu,  yl <= y + d <= yu`. If it is
+//! 2. QP `min 1/2 d'Bd + g'd  subject to  cl <= c + J d <= cu,  yl <= y + d <= yu`. If it is
 //!    infeasible (inconsistent linearisation), the elastic QP relaxes every row with
 //!    nonnegative slacks weighted by the penalty, so a step always exists; if the violation
 //!    alone is stationary (a proximal QP on the l1 violation returns a tiny step), the point is

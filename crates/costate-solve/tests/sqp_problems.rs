@@ -124,7 +124,7 @@ fn hs071_active_inequality_and_bound() {
 }
 
 /// J. Nocedal, S. J. Wright, "Numerical Optimization", 2nd ed., 2006, Example 12.1:
-/// min x1 + x2 s.t. x1^2 + x2^2 = 2; solution (-1, -1). With L = f + lambda c the multiplier
+/// min x1 + x2 subject to x1^2 + x2^2 = 2; solution (-1, -1). With L = f + lambda c the multiplier
 /// is +1/2 (the book's convention L = f - lambda c gives -1/2).
 fn circle() -> TestNlp {
     TestNlp::new(vec![0.5, -2.0], Box::new(|x| x[0] + x[1]), Box::new(|_, g| g.fill(1.0)))
@@ -154,7 +154,7 @@ fn nocedal_wright_example_12_1_circle() {
     }
 }
 
-/// Nonconvex Lagrangian: min -x1 x2 s.t. x1 + x2 = 2. The Hessian [[0,-1],[-1,0]] is
+/// Nonconvex Lagrangian: min -x1 x2 subject to x1 + x2 = 2. The Hessian [[0,-1],[-1,0]] is
 /// indefinite (the exact mode must shift it), but positive on the constraint's null space.
 /// Solution (1, 1), f = -1, lambda = 1 (independent computation: -x2 + lambda = 0).
 fn saddle_product() -> TestNlp {
@@ -389,7 +389,7 @@ fn redundant_equalities_still_solve() {
     }
 }
 
-/// min (x1 - 2)^2 + (x2 - 2)^2 s.t. x1 + x2 <= 2, 2 x1 + 2 x2 <= 4, x1 <= 1 (a bound).
+/// min (x1 - 2)^2 + (x2 - 2)^2 subject to x1 + x2 <= 2, 2 x1 + 2 x2 <= 4, x1 <= 1 (a bound).
 /// At the optimum all three are active with gradients (1, 1), (2, 2), (1, 0) in the plane:
 /// LICQ fails and the multipliers are not unique. Independent computation: the projection of
 /// (2, 2) onto the half-plane x1 + x2 <= 2 is (1, 1), which satisfies x1 <= 1, so x* = (1, 1),
@@ -445,7 +445,7 @@ fn degenerate_active_inequalities_still_solve() {
     }
 }
 
-/// min -x1 - x2 s.t. x1 = x2: unbounded below along the constraint.
+/// min -x1 - x2 subject to x1 = x2: unbounded below along the constraint.
 fn unbounded() -> TestNlp {
     TestNlp::new(vec![0.0, 0.0], Box::new(|x| -x[0] - x[1]), Box::new(|_, g| g.fill(-1.0)))
         .constraints(
@@ -518,7 +518,7 @@ fn failure_at_the_start_reports_the_problem_location() {
     );
 }
 
-/// min x1 + x2 s.t. x1^2 + x2^2 = 4 and x1 - x2 = 1 from (0, 0): the first row's gradient
+/// min x1 + x2 subject to x1^2 + x2^2 = 4 and x1 - x2 = 1 from (0, 0): the first row's gradient
 /// vanishes there, so its linearisation 0 = 4 is inconsistent and the first step must come
 /// from the elastic QP, while the violation is not stationary (the second row can improve).
 /// Independent computation: substituting x1 = x2 + 1 gives 2 x2^2 + 2 x2 - 3 = 0; the minimum
