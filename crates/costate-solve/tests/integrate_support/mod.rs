@@ -145,9 +145,14 @@ pub fn values(out: &IntervalOutput) -> Vec<f64> {
 
 /// Central differences of the integrator map with step `delta * max(1, |w_c|)` per column,
 /// as a row-major `(nx + nq) x n_cols` matrix.
-pub fn central_differences(integ: &mut Integrator, data: &Data, delta: f64) -> Vec<Vec<f64>> {
+/// An error when the integrator refuses the point or one of its perturbations.
+pub fn central_differences(
+    integ: &mut Integrator,
+    data: &Data,
+    delta: f64,
+) -> Result<Vec<Vec<f64>>, IntegrationError> {
     let cols = integ.columns();
-    let base = values(&run(integ, data, false).unwrap());
+    let base = values(&run(integ, data, false)?);
     let mut jac = vec![vec![0.0; cols.len()]; base.len()];
     for c in 0..cols.len() {
         let mut plus = data.clone();
@@ -156,11 +161,11 @@ pub fn central_differences(integ: &mut Integrator, data: &Data, delta: f64) -> V
         let step = delta * w.abs().max(1.0);
         *plus.entry(c, cols.linear) = w + step;
         *minus.entry(c, cols.linear) = w - step;
-        let vp = values(&run(integ, &plus, false).unwrap());
-        let vm = values(&run(integ, &minus, false).unwrap());
+        let vp = values(&run(integ, &plus, false)?);
+        let vm = values(&run(integ, &minus, false)?);
         for ((row, p), m) in jac.iter_mut().zip(&vp).zip(&vm) {
             row[c] = (p - m) / (2.0 * step);
         }
     }
-    jac
+    Ok(jac)
 }
