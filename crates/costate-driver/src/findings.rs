@@ -63,10 +63,6 @@ fn describe_kind(kind: FunctionKind) -> &'static str {
 /// At most this many violated constraints are reported, the worst first.
 const MAX_REPORTED_CONSTRAINTS: usize = 5;
 
-/// Violations smaller than this fraction of the worst one are left out: they are the
-/// consequence of the worst ones (the solver trades them off), not separate causes.
-const MINOR_VIOLATION_FRACTION: f64 = 1e-3;
-
 /// One diagnostic per violated constraint or bound of the source (not per node), with the
 /// largest amount and the nodes where it is violated.
 fn violated_constraints(
@@ -75,21 +71,13 @@ fn violated_constraints(
     violations: &[Violation],
 ) -> Vec<Diagnostic> {
     let map = &loaded.lowered.source_map;
-    let worst = violations.iter().map(|v| v.amount).fold(0.0_f64, f64::max);
     // (span, description, largest amount, nodes) in order of first appearance, worst first.
     let mut groups: Vec<(Span, String, f64, Vec<usize>)> = Vec::new();
-    let mut sorted: Vec<&Violation> = violations.iter().collect();
-    sorted.sort_by(|a, b| b.amount.total_cmp(&a.amount));
-    for v in sorted {
-        if v.amount < MINOR_VIOLATION_FRACTION * worst {
-            continue;
-        }
+    // The solver lists them largest first, so the first of each group is its worst.
+    for v in violations {
         let (span, what) = describe_violation(loaded, v.what);
         match groups.iter_mut().find(|g| g.0 == span && g.1 == what) {
-            Some(group) => {
-                group.2 = group.2.max(v.amount);
-                group.3.extend(v.node);
-            }
+            Some(group) => group.3.extend(v.node),
             None => groups.push((span, what, v.amount, v.node.into_iter().collect())),
         }
     }

@@ -197,8 +197,8 @@ pub struct Violation {
 pub enum OcpStatus {
     Solved,
     SolvedReducedAccuracy,
-    /// The violation cannot be reduced further; the most violated rows and bounds, largest
-    /// first.
+    /// The violation cannot be reduced further; every row and bound violated by more than
+    /// the feasibility tolerance (and every row the SQP named), largest first.
     LocallyInfeasible {
         violations: Vec<Violation>,
     },
@@ -243,9 +243,6 @@ pub struct OcpSolution {
     pub timing: Timing,
     pub history: Vec<IterationRow>,
 }
-
-/// Most violations listed for a locally infeasible outcome.
-const MAX_VIOLATIONS: usize = 10;
 
 /// Transcribe `ocp` on `settings.intervals` uniform intervals and solve it. `warm` starts from
 /// a previous trajectory (any mesh) instead of the guesses; `cancel`, when raised, stops the
@@ -302,7 +299,7 @@ pub fn solve_ocp(
         second.history = history;
         result = second;
     }
-    Ok(report(&mut nlp, result))
+    Ok(report(&mut nlp, result, settings.sqp.feasibility_tolerance))
 }
 
 /// One SQP solve of `nlp`. The SQP's observers must be 'static, the caller's is not: the
@@ -336,7 +333,9 @@ fn run(
 }
 
 /// The solution in the problem's terms.
-fn report(nlp: &mut MultipleShooting, r: SqpResult) -> OcpSolution {
+/// The solution in the problem's terms. Rows and bounds count as violated when they are off
+/// by more than `tolerance` (rounding-level residuals of satisfied rows are not findings).
+fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSolution {
     let l = nlp.layout().clone();
     let n = l.n_vars();
     let m = l.n_constraints();
@@ -396,7 +395,7 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult) -> OcpSolution {
         let a = outside(c[i], cl[i], cu[i]);
         max_violation =
             if a.is_nan() || max_violation.is_nan() { f64::NAN } else { max_violation.max(a) };
-        if a > 0.0 {
+        if a > tolerance {
             let (what, node) = l.decode_row(i);
             violations.push(Violation { what, node, amount: a });
         }
@@ -406,7 +405,7 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult) -> OcpSolution {
         if !max_violation.is_nan() {
             max_violation = max_violation.max(a);
         }
-        if a > 0.0 {
+        if a > tolerance {
             let (what, node) = l.decode_variable(j);
             violations.push(Violation { what, node, amount: a });
         }
@@ -432,7 +431,6 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult) -> OcpSolution {
                 }
             }
             violations.sort_by(|a, b| b.amount.total_cmp(&a.amount));
-            violations.truncate(MAX_VIOLATIONS);
             OcpStatus::LocallyInfeasible { violations }
         }
     };
