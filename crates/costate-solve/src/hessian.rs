@@ -12,7 +12,7 @@ use clarabel::algebra::CscMatrix;
 use clarabel::qdldl::{QDLDLFactorisation, QDLDLSettings};
 use nalgebra::{DMatrix, DVector};
 
-use crate::qp::Triplets;
+use crate::qp_legacy::Triplets;
 
 /// Result of one BFGS update, for the iteration log.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]

@@ -19,13 +19,15 @@ pub mod hessian;
 pub mod integrate;
 pub mod nlp;
 pub mod qp;
+pub mod qp_legacy;
 pub mod settings;
 pub mod sqp;
 pub mod transcribe;
 
 pub use nlp::{EvalError, EvalFailure, EvalPart, Nlp, Pattern};
 pub use qp::{
-    ClarabelQp, ClarabelQpSettings, QpError, QpProblem, QpSolution, QpSolver, QpStatus, Triplets,
+    ClarabelQp, ClarabelQpSettings, QpError, QpSolution, QpSolver, QpStatus, StageIpm,
+    StageIpmSettings, StageLayout, StageQp,
 };
 pub use settings::{HessianMode, SettingsError, SqpSettings};
 pub use sqp::{

@@ -48,7 +48,7 @@ use argmin::core::{
 
 use crate::hessian::{convexify, BfgsUpdate, BlockBfgs};
 use crate::nlp::{finite_bound, EvalError, EvalPart, Nlp, Pattern};
-use crate::qp::{
+use crate::qp_legacy::{
     ClarabelQp, ClarabelQpSettings, QpProblem, QpSolution, QpSolver, QpStatus, Triplets,
 };
 use crate::settings::{HessianMode, SettingsError, SqpSettings};

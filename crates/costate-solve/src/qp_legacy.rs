@@ -17,6 +17,7 @@ use clarabel::algebra::CscMatrix;
 use clarabel::solver::{DefaultSettings, DefaultSolver, IPSolver, SolverStatus, SupportedConeT};
 
 use crate::nlp::finite_bound;
+pub use crate::qp::{QpError, QpStatus};
 
 /// A sparse matrix as `(row, col, value)` triplets; repeated entries are summed.
 #[derive(Clone, Debug, Default, PartialEq)]
@@ -149,42 +150,6 @@ impl QpProblem {
     }
 }
 
-/// Outcome of one QP solve.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub enum QpStatus {
-    Solved,
-    /// Converged to the solver's looser tolerances.
-    SolvedReducedAccuracy,
-    /// No point satisfies the constraints.
-    Infeasible,
-    /// The objective decreases without bound on the feasible set.
-    Unbounded,
-    IterationLimit,
-    TimeLimit,
-    /// Numerical breakdown or no progress.
-    NumericalFailure,
-}
-
-impl QpStatus {
-    /// Whether `step` and the multipliers are a usable solution.
-    pub fn has_solution(self) -> bool {
-        matches!(self, QpStatus::Solved | QpStatus::SolvedReducedAccuracy)
-    }
-
-    /// Short lowercase label for logs.
-    pub fn label(self) -> &'static str {
-        match self {
-            QpStatus::Solved => "solved",
-            QpStatus::SolvedReducedAccuracy => "inexact",
-            QpStatus::Infeasible => "infeasible",
-            QpStatus::Unbounded => "unbounded",
-            QpStatus::IterationLimit => "iterlimit",
-            QpStatus::TimeLimit => "timelimit",
-            QpStatus::NumericalFailure => "numfail",
-        }
-    }
-}
-
 /// A QP result; vectors are sized to the problem even when `status` has no solution.
 #[derive(Clone, Debug, PartialEq)]
 pub struct QpSolution {
@@ -196,18 +161,6 @@ pub struct QpSolution {
     pub bound_multipliers: Vec<f64>,
     pub iterations: u32,
 }
-
-/// A malformed QP (wrong sizes, NaN data, crossed bounds, lower-triangle Hessian entries).
-#[derive(Clone, Debug, PartialEq, Eq)]
-pub struct QpError(pub String);
-
-impl std::fmt::Display for QpError {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        write!(f, "invalid QP: {}", self.0)
-    }
-}
-
-impl std::error::Error for QpError {}
 
 /// Solves convex QPs. `Err` only for a malformed problem; every numerical outcome is a status.
 pub trait QpSolver {
