@@ -39,7 +39,7 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
                 .with_help("keep the arguments of `sqrt`, `log`, divisions and powers in their domain with bounds, or give a better `guess`"),
             );
         }
-        OcpStatus::LocallyInfeasible { violations } => {
+        OcpStatus::LocallyInfeasible { violations, .. } => {
             out.extend(violated_constraints(loaded, solution, violations));
         }
         OcpStatus::IterationLimit | OcpStatus::TimeLimit | OcpStatus::Stalled(_) => {

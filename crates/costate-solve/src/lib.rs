@@ -6,8 +6,9 @@
 //!
 //! Layers (each module's docs say what it owns):
 //! - [`nlp`]: the sparse NLP interface the SQP solves;
-//! - [`qp`]: convex QP subproblems behind a trait, solved by Clarabel by default;
-//! - [`hessian`]: block BFGS and convexification of exact Hessians;
+//! - [`qp`]: convex QP subproblems on the stage structure behind a trait, solved by our
+//!   stage-wise interior-point method ([`qp::StageIpm`]), with Clarabel as the reference;
+//! - [`hessian`]: block BFGS and block-wise convexification of exact Hessians;
 //! - [`settings`]: the SQP's settings;
 //! - [`sqp`]: the SQP method as an argmin solver, its statuses, results and log rows.
 
@@ -15,11 +16,11 @@
 // would hide that symmetry. Observer and evaluation signatures are spelled out where used.
 #![allow(clippy::needless_range_loop, clippy::type_complexity)]
 
+pub mod convexify;
 pub mod hessian;
 pub mod integrate;
 pub mod nlp;
 pub mod qp;
-pub mod qp_legacy;
 pub mod settings;
 pub mod sqp;
 pub mod transcribe;
@@ -31,11 +32,12 @@ pub use qp::{
 };
 pub use settings::{HessianMode, SettingsError, SqpSettings};
 pub use sqp::{
-    log_header, log_line, solve_nlp, IterationRow, Residuals, RowObserver, SolveError, Sqp,
-    SqpResult, SqpState, SqpStatus, StallReason, StepKind, Timing, ViolatedRow,
-    STAGNATION_ITERATIONS,
+    log_header, log_line, solve_nlp, Conflict, ConflictItem, IterationRow, Residuals,
+    RowObserver, Scaling, SolveError, Sqp, SqpResult, SqpState, SqpStatus, StallReason,
+    StepKind, Timing, ViolatedRow, STAGNATION_ITERATIONS,
 };
 pub use transcribe::{
     estimate_memory, solve_ocp, Finding, MemoryEstimate, MultipleShooting, OcpSettings,
-    OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource, DEFAULT_MEMORY_LIMIT,
+    Conflicting, OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource,
+    DEFAULT_MEMORY_LIMIT,
 };

@@ -21,7 +21,8 @@
 //!   array in that order; repeated entries are summed.
 
 use std::fmt;
-use std::ops::Range;
+
+use crate::qp::StageLayout;
 
 /// Bounds with a magnitude at or above this are treated as absent.
 pub const INFINITE_BOUND: f64 = 1e20;
@@ -213,6 +214,13 @@ pub trait Nlp {
         false
     }
 
+    /// Give the variables of `w` that are defined by others (running sums of a lifted
+    /// integral, say) the values those others imply, so their rows hold exactly. The solver
+    /// calls it on every trial point before evaluating it: a merit function would otherwise
+    /// see such bookkeeping rows violated by the curvature the linearisation left out, and
+    /// reject good steps. Default: nothing.
+    fn complete(&mut self, _w: &mut [f64]) {}
+
     /// `f(w)`.
     fn objective(&mut self, w: &[f64]) -> Result<f64, EvalError>;
 
@@ -251,12 +259,12 @@ pub trait Nlp {
         Err(EvalError::unavailable(EvalPart::Hessian))
     }
 
-    /// Disjoint index ranges of variables whose second-order coupling is kept by the block
-    /// BFGS approximation (for multiple shooting: the state and control of each interval).
-    /// Variables in no range are gathered into one extra block. Default: no blocks, i.e. one
-    /// dense block over all variables.
-    fn variable_blocks(&self) -> Vec<Range<usize>> {
-        Vec::new()
+    /// The stage structure of the variables and rows, when they are ordered stage by stage
+    /// (see [`StageLayout`]): the SQP's QPs then have it too, its Hessian models are built
+    /// block by block and solved stage by stage. The Hessian must not couple two stages.
+    /// Default `None`: one stage holding everything (a small dense problem).
+    fn stages(&self) -> Option<StageLayout> {
+        None
     }
 
     /// Typical magnitudes of the variables (length `n`, positive); the solver works with
@@ -296,6 +304,9 @@ impl<T: Nlp + ?Sized> Nlp for &mut T {
     fn initial_multipliers(&self, constraint: &mut [f64], bound: &mut [f64]) -> bool {
         (**self).initial_multipliers(constraint, bound)
     }
+    fn complete(&mut self, w: &mut [f64]) {
+        (**self).complete(w)
+    }
     fn objective(&mut self, w: &[f64]) -> Result<f64, EvalError> {
         (**self).objective(w)
     }
@@ -326,8 +337,8 @@ impl<T: Nlp + ?Sized> Nlp for &mut T {
     ) -> Result<(), EvalError> {
         (**self).hessian(w, objective_factor, multipliers, values)
     }
-    fn variable_blocks(&self) -> Vec<Range<usize>> {
-        (**self).variable_blocks()
+    fn stages(&self) -> Option<StageLayout> {
+        (**self).stages()
     }
     fn variable_scales(&self, scales: &mut [f64]) {
         (**self).variable_scales(scales)

@@ -13,8 +13,8 @@ pub enum HessianMode {
     /// The exact Lagrangian Hessian when the problem provides one (the multiple-shooting
     /// transcription does with RK4), else block BFGS (Radau IIA).
     Auto,
-    /// The exact Lagrangian Hessian, convexified (augmented-Lagrangian term, block projection
-    /// or diagonal shift; see `sqp.rs`). A problem without one is an input error.
+    /// The exact Lagrangian Hessian, each stage block made positive definite on its own
+    /// (see `hessian.rs`). A problem without one is an input error.
     Exact,
     /// Damped block-diagonal BFGS built from gradient differences.
     Bfgs,
@@ -43,13 +43,9 @@ pub struct SqpSettings {
     /// Powell damping threshold of the BFGS update: the damped curvature `s'r` is at least
     /// this fraction of `s'Bs` (dimensionless, in (0, 1)). Default `0.2`.
     pub bfgs_damping: f64,
-    /// First nonzero diagonal shift tried when the exact Hessian is not positive definite
-    /// (scaled units). Default `1e-4`.
-    pub hessian_shift_start: f64,
-    /// Factor by which the diagonal shift grows between tries (> 1). Default `10`.
-    pub hessian_shift_growth: f64,
-    /// Largest diagonal shift; beyond it the step is taken with this shift anyway. Default `1e10`.
-    pub hessian_shift_max: f64,
+    /// Eigenvalues of an exact Hessian block below this fraction of the block's largest
+    /// (at least 1) are raised to it (dimensionless, in (0, 1)). Default `1e-8`.
+    pub convexity_floor: f64,
     /// Sufficient-decrease fraction of the line search on the merit function (in (0, 0.5)).
     /// Default `1e-4`.
     pub sufficient_decrease: f64,
@@ -70,16 +66,16 @@ pub struct SqpSettings {
     /// proximal QP on the l1 violation) is shorter than this (scaled, inf-norm). Default `1e-7`.
     pub infeasibility_tolerance: f64,
     /// When a QP multiplier exceeds this (scaled, inf-norm) the linearised constraints are
-    /// taken as nearly inconsistent and the step comes from the elastic QP, whose weight is
-    /// capped here too. Default `1e6`.
+    /// taken as nearly inconsistent and the step comes from the elastic QP. Default `1e6`.
     pub elastic_multiplier_limit: f64,
     /// Use the problem's variable, constraint and objective scales. Default `true`.
     pub use_scaling: bool,
-    /// When the objective gradient at the start exceeds this (inf-norm, after the problem's
-    /// own scaling), the objective is scaled down so it equals this. `inf` disables.
-    /// Default `100`.
-    pub objective_gradient_limit: f64,
-    /// Feasibility and gap tolerance passed to the QP solver. Default `1e-10`.
+    /// Scale the objective so its gradient at the start has this size (inf-norm, after the
+    /// problem's own variable and objective scales): a cost of 1e-9 s or of 1e9 J is then
+    /// solved like one of order one. `inf` keeps the problem's own objective scale.
+    /// Default `1`.
+    pub objective_gradient_target: f64,
+    /// Feasibility and gap tolerance of the QP solver (relative). Default `1e-10`.
     pub qp_tolerance: f64,
     /// Iteration limit passed to the QP solver. Default 200.
     pub qp_max_iterations: u32,
@@ -96,9 +92,7 @@ impl Default for SqpSettings {
             time_limit: f64::INFINITY,
             hessian: HessianMode::Auto,
             bfgs_damping: 0.2,
-            hessian_shift_start: 1e-4,
-            hessian_shift_growth: 10.0,
-            hessian_shift_max: 1e10,
+            convexity_floor: 1e-8,
             sufficient_decrease: 1e-4,
             backtrack_factor: 0.5,
             min_step: 1e-10,
@@ -108,7 +102,7 @@ impl Default for SqpSettings {
             infeasibility_tolerance: 1e-7,
             elastic_multiplier_limit: 1e6,
             use_scaling: true,
-            objective_gradient_limit: 100.0,
+            objective_gradient_target: 1.0,
             qp_tolerance: 1e-10,
             qp_max_iterations: 200,
         }
@@ -138,8 +132,6 @@ impl SqpSettings {
             ("stationarity_tolerance", self.stationarity_tolerance),
             ("feasibility_tolerance", self.feasibility_tolerance),
             ("complementarity_tolerance", self.complementarity_tolerance),
-            ("hessian_shift_start", self.hessian_shift_start),
-            ("hessian_shift_max", self.hessian_shift_max),
             ("penalty_start", self.penalty_start),
             ("penalty_max", self.penalty_max),
             ("infeasibility_tolerance", self.infeasibility_tolerance),
@@ -155,6 +147,7 @@ impl SqpSettings {
             ("bfgs_damping", self.bfgs_damping),
             ("backtrack_factor", self.backtrack_factor),
             ("min_step", self.min_step),
+            ("convexity_floor", self.convexity_floor),
         ];
         for (field, v) in unit_open {
             if !(v > 0.0 && v < 1.0) {
@@ -167,20 +160,14 @@ impl SqpSettings {
         if !(self.reduced_accuracy_factor.is_finite() && self.reduced_accuracy_factor >= 1.0) {
             return err("reduced_accuracy_factor", "must be finite and at least 1");
         }
-        if !(self.hessian_shift_growth.is_finite() && self.hessian_shift_growth > 1.0) {
-            return err("hessian_shift_growth", "must be finite and greater than 1");
-        }
-        if self.hessian_shift_max < self.hessian_shift_start {
-            return err("hessian_shift_max", "must be at least hessian_shift_start");
-        }
         if self.penalty_max <= self.penalty_start {
             return err("penalty_max", "must exceed penalty_start");
         }
         if self.time_limit.is_nan() || self.time_limit <= 0.0 {
             return err("time_limit", "must be positive (inf for none)");
         }
-        if self.objective_gradient_limit.is_nan() || self.objective_gradient_limit <= 0.0 {
-            return err("objective_gradient_limit", "must be positive (inf to disable)");
+        if self.objective_gradient_target.is_nan() || self.objective_gradient_target <= 0.0 {
+            return err("objective_gradient_target", "must be positive (inf to disable)");
         }
         if self.max_iterations == 0 {
             return err("max_iterations", "must be at least 1");

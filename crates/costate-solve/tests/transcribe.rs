@@ -159,7 +159,7 @@ fn mixed_problem(free_end: bool) -> Ocp {
 }
 
 /// [`mixed_problem`], or with `q_over_p` false its isoperimetric row `q / 2 - x0(tf)`, linear
-/// in the integral, so the transcription can offer an exact Hessian.
+/// in the integral.
 fn mixed_problem_with(free_end: bool, q_over_p: bool) -> Ocp {
     let end = if free_end {
         EndTime::Free { bounds: Bounds { lo: 0.5, hi: 4.0 }, guess: 1.5 }
@@ -347,11 +347,11 @@ fn jacobian_and_gradient_match_central_differences() {
 /// Compares the exact Lagrangian Hessian with central differences of the Lagrangian gradient
 /// `sigma grad f + J' lambda` (built from the already checked first derivatives) at a random
 /// point and random multipliers.
-fn check_hessian(free_end: bool, controls: ControlShape, seed: u64) {
-    let ocp = mixed_problem_with(free_end, false);
+fn check_hessian(free_end: bool, controls: ControlShape, q_over_p: bool, seed: u64) {
+    let ocp = mixed_problem_with(free_end, q_over_p);
     let integ = IntegratorSettings { controls, substeps: 2, ..IntegratorSettings::default() };
     let mut nlp = MultipleShooting::new(&ocp, 4, integ).expect("valid problem");
-    assert!(nlp.has_exact_hessian(), "RK4 with integrals entering linearly has a Hessian");
+    assert!(nlp.has_exact_hessian(), "RK4 always has an exact Hessian");
     let (n, m) = (nlp.num_variables(), nlp.num_constraints());
     let mut rng = Lcg(seed);
     let w = random_point(&nlp, &mut rng);
@@ -413,14 +413,14 @@ fn exact_hessian_matches_central_differences_of_the_gradient() {
     let mut seed = 40;
     for free_end in [false, true] {
         for controls in [ControlShape::Constant, ControlShape::Linear] {
-            seed += 1;
-            check_hessian(free_end, controls, seed);
+            // Integrals entering linearly, and nonlinearly (q / p): the running sums keep the
+            // second derivatives of both in the last node's block.
+            for q_over_p in [false, true] {
+                seed += 1;
+                check_hessian(free_end, controls, q_over_p, seed);
+            }
         }
     }
-    // An integral entering nonlinearly (q / p) would couple all intervals: no Hessian then.
-    let nlp = MultipleShooting::new(&mixed_problem(true), 4, IntegratorSettings::default())
-        .expect("valid problem");
-    assert!(!nlp.has_exact_hessian() && nlp.hessian_pattern().is_none());
 }
 
 #[test]
@@ -428,28 +428,36 @@ fn layout_bounds_blocks_and_start_point() {
     let ocp = mixed_problem(true);
     let nlp = MultipleShooting::new(&ocp, 4, IntegratorSettings::default()).expect("valid problem");
     let l = nlp.layout();
-    // 5 nodes of 2 states, 4 constant controls, a parameter and tf copy per node.
-    assert_eq!(nlp.num_variables(), 5 * 2 + 4 + 5 * 2);
-    // Continuity and copy rows per interval, path rows per node, boundary rows.
-    assert_eq!(nlp.num_constraints(), 4 * 2 + 4 * 2 + 5 + 2);
+    // 5 nodes of 2 states, a control (a copy at the last node), a parameter and a tf copy;
+    // nodes 1..4 also the running integral and the carried start of state 1 (which the
+    // objective and a boundary row read together with end values).
+    assert_eq!(l.placement.carried, vec![1]);
+    assert_eq!(nlp.num_variables(), 5 * 5 + 4 * 2);
+    // Per interval continuity (2), parameter, tf, integral and start copies, the control
+    // copy on the last interval; path rows per node; boundary rows.
+    assert_eq!(nlp.num_constraints(), 4 * 6 + 1 + 5 + 2);
     let n = nlp.num_variables();
     let (mut lo, mut hi) = (vec![0.0; n], vec![0.0; n]);
     nlp.variable_bounds(&mut lo, &mut hi);
     assert_eq!((lo[l.x(0, 0)], hi[l.x(0, 0)]), (0.3, 0.3), "fixed start");
     assert_eq!((lo[l.x(4, 1)], hi[l.x(4, 1)]), (-1.0, 1.0), "end bounds on the last node");
     assert_eq!((lo[l.x(2, 1)], hi[l.x(2, 1)]), (f64::NEG_INFINITY, f64::INFINITY));
-    let tf = l.tf().expect("free end");
+    let tf = l.tf_at(0).expect("free end");
     assert_eq!((lo[tf], hi[tf]), (0.5, 4.0));
+    let copy = l.tf_at(3).expect("free end");
+    assert_eq!((lo[copy], hi[copy]), (0.2, f64::INFINITY), "copies only keep t >= t0");
     let mut w = vec![0.0; n];
     nlp.initial_point(&mut w);
     assert_eq!(w[tf], 1.5);
-    assert_eq!(w[l.p(0)], 1.0);
+    assert_eq!(w[l.p_at(0, 0)], 1.0);
     // Linear from the fixed start 0.3 to the representative 0 of a free end: 0.3 (1 - 3/4).
     assert!((w[l.x(3, 0)] - 0.075).abs() < 1e-15);
-    let blocks = nlp.variable_blocks();
-    assert_eq!(blocks.len(), 5);
-    assert_eq!(blocks[0], 0..5);
-    assert_eq!(blocks[4], 20..24);
+    // The carried start and running integral are consistent with the start point.
+    assert_eq!(w[l.s(4, 0)], w[l.x(0, 1)]);
+    let stages = nlp.stages().expect("a stage structure");
+    assert_eq!(stages.stages(), 5);
+    assert_eq!(stages.vars(0), 0..5);
+    assert_eq!(stages.vars(4), 26..33);
 }
 
 #[test]
@@ -472,8 +480,8 @@ fn warm_start_interpolates_a_coarser_trajectory() {
     assert!((w[l.x(2, 1)] - 2.0).abs() < 1e-12);
     assert_eq!(w[l.x(4, 1)], 1.0, "clamped into the end bounds");
     assert_eq!(w[l.u_at(1, 0)], 2.0, "control 2 clamped to its upper bound 2");
-    assert_eq!(w[l.p(0)], 2.0);
-    assert_eq!(w[l.tf().expect("free end")], 2.2);
+    assert_eq!(w[l.p_at(0, 0)], 2.0);
+    assert_eq!(w[l.tf_at(0).expect("free end")], 2.2);
     let bad = Trajectory { states: vec![vec![0.0; 3]], ..warm };
     assert!(nlp.warm_start(&bad).is_err());
 }
@@ -642,7 +650,7 @@ fn unreachable_end_is_locally_infeasible() {
         &none_e,
     );
     let sol = solve(&ocp, &settings(20, ControlShape::Constant));
-    let OcpStatus::LocallyInfeasible { violations } = &sol.status else {
+    let OcpStatus::LocallyInfeasible { violations, .. } = &sol.status else {
         panic!("expected locally infeasible, got {:?}", sol.status);
     };
     assert!(!violations.is_empty());

@@ -38,6 +38,7 @@
 use std::sync::Arc;
 
 use super::kkt::{BlockKkt, Regularisation};
+use super::scaling::Equilibration;
 use super::stage::{StageLayout, StageQp};
 use super::{QpError, QpSolution, QpSolver, QpStatus};
 use crate::nlp::finite_bound;
@@ -62,6 +63,9 @@ pub struct StageIpmSettings {
     pub regularisation: f64,
     /// Most steps of iterative refinement per solve. Default 8.
     pub refinement_steps: usize,
+    /// Equilibrate the QP's rows and columns before solving (see `scaling.rs`).
+    /// Default `true`.
+    pub equilibrate: bool,
 }
 
 impl Default for StageIpmSettings {
@@ -74,9 +78,13 @@ impl Default for StageIpmSettings {
             step_fraction: 0.99,
             regularisation: 1e-8,
             refinement_steps: 8,
+            equilibrate: true,
         }
     }
 }
+
+/// Iterations without a better iterate after which the method stops.
+const STALL_ITERATIONS: u32 = 20;
 
 /// Fraction of the average complementarity product every product must keep after a step.
 const NEIGHBOURHOOD: f64 = 1e-3;
@@ -151,6 +159,11 @@ struct Workspace {
     cx: Vec<f64>,
     cy: Vec<f64>,
     cz: Vec<f64>,
+    /// Equilibration of the QP being solved (ones when there is none): the error is measured
+    /// on the original.
+    col_scale: Vec<f64>,
+    row_scale: Vec<f64>,
+    cost_scale: f64,
     // The iterate closest to optimality so far.
     best_x: Vec<f64>,
     best_y: Vec<f64>,
@@ -163,11 +176,12 @@ struct Workspace {
 pub struct StageIpm {
     pub settings: StageIpmSettings,
     ws: Option<Box<Workspace>>,
+    scaling: Option<Box<(Equilibration, QpSolution)>>,
 }
 
 impl StageIpm {
     pub fn new(settings: StageIpmSettings) -> StageIpm {
-        StageIpm { settings, ws: None }
+        StageIpm { settings, ws: None, scaling: None }
     }
 }
 
@@ -180,13 +194,30 @@ impl QpSolver for StageIpm {
             self.ws = Some(Box::new(Workspace::new(qp)));
         }
         let ws = self.ws.as_mut().expect("workspace set up above");
-        ws.run(qp, &self.settings, out);
+        if !self.settings.equilibrate {
+            ws.col_scale.fill(1.0);
+            ws.row_scale.fill(1.0);
+            ws.cost_scale = 1.0;
+            ws.run(qp, &self.settings, out);
+            return Ok(());
+        }
+        if !self.scaling.as_ref().is_some_and(|s| s.0.fits(qp)) {
+            let sol = QpSolution::new(qp.num_variables(), qp.num_rows());
+            self.scaling = Some(Box::new((Equilibration::new(qp), sol)));
+        }
+        let (eq, scaled_out) = &mut **self.scaling.as_mut().expect("scaling set up above");
+        eq.apply(qp);
+        eq.copy_scales(&mut ws.col_scale, &mut ws.row_scale, &mut ws.cost_scale);
+        ws.run(&eq.scaled, &self.settings, scaled_out);
+        eq.unscale(scaled_out, out);
         Ok(())
     }
 }
 
+/// The largest magnitude, NaN when any entry is NaN (`f64::max` would skip it, and a NaN
+/// iterate would look converged).
 fn inf_norm(v: &[f64]) -> f64 {
-    v.iter().fold(0.0, |a, x| a.max(x.abs()))
+    v.iter().fold(0.0, |a: f64, x| if x.abs() > a || x.is_nan() { x.abs() } else { a })
 }
 
 fn dot(a: &[f64], b: &[f64]) -> f64 {
@@ -298,6 +329,9 @@ impl Workspace {
             cx: zeros(n),
             cy: zeros(me),
             cz: zeros(ms),
+            col_scale: vec![1.0; n],
+            row_scale: vec![1.0; m],
+            cost_scale: 1.0,
             best_x: zeros(n),
             best_y: zeros(me),
             best_z: zeros(ms),
@@ -634,16 +668,41 @@ impl Workspace {
 
     /// Largest relative residual or duality gap at the iterate (with `x'Px`).
     fn optimality_error(&self, xpx: f64) -> f64 {
-        let norm_b = inf_norm(&self.b).max(inf_norm(&self.h));
-        let norm_q = inf_norm(&self.q);
-        let norm_x = inf_norm(&self.x);
-        let norm_w = inf_norm(&self.y).max(inf_norm(&self.z));
-        let norm_s = inf_norm(&self.s);
-        let pres = inf_norm(&self.ry).max(inf_norm(&self.rz));
-        let dres = inf_norm(&self.rx);
+        let broken = |v: &[f64]| v.iter().any(|e| !e.is_finite());
+        if broken(&self.x) || broken(&self.y) || broken(&self.z) || broken(&self.s) {
+            return f64::NAN;
+        }
+        // Measured on the QP as given, not as equilibrated: x = D x~, rows e a'x, cost c f.
+        let (d, e, c) = (&self.col_scale, &self.row_scale, self.cost_scale);
+        let side_scale = |t: usize| match self.sides[t] {
+            Side::Row(i, _) => 1.0 / e[i],
+            Side::Var(j, _) => d[j],
+        };
+        let mut norm_b: f64 = 0.0;
+        let mut pres: f64 = 0.0;
+        let mut norm_w: f64 = 0.0;
+        for (t, &i) in self.eq_rows.iter().enumerate() {
+            norm_b = norm_b.max((self.b[t] / e[i]).abs());
+            pres = pres.max((self.ry[t] / e[i]).abs());
+            norm_w = norm_w.max((self.y[t] * e[i] / c).abs());
+        }
+        let mut norm_s: f64 = 0.0;
+        for t in 0..self.sides.len() {
+            let k = side_scale(t);
+            norm_b = norm_b.max((self.h[t] * k).abs());
+            pres = pres.max((self.rz[t] * k).abs());
+            norm_s = norm_s.max((self.s[t] * k).abs());
+            norm_w = norm_w.max((self.z[t] / (k * c)).abs());
+        }
+        let (mut norm_q, mut norm_x, mut dres): (f64, f64, f64) = (0.0, 0.0, 0.0);
+        for j in 0..self.x.len() {
+            norm_q = norm_q.max((self.q[j] / (d[j] * c)).abs());
+            norm_x = norm_x.max((self.x[j] * d[j]).abs());
+            dres = dres.max((self.rx[j] / (d[j] * c)).abs());
+        }
         let bw = dot(&self.b, &self.y) + dot(&self.h, &self.z);
-        let pobj = 0.5 * xpx + dot(&self.q, &self.x);
-        let dobj = -0.5 * xpx - bw;
+        let pobj = (0.5 * xpx + dot(&self.q, &self.x)) / c;
+        let dobj = (-0.5 * xpx - bw) / c;
         let gap = (pobj - dobj).abs();
         (pres / (1.0 + norm_b + norm_x + norm_s))
             .max(dres / (1.0 + norm_q + norm_x + norm_w))
@@ -811,6 +870,7 @@ impl Workspace {
         let mut iterations = 0;
         let mut slow = 0;
         let mut best = f64::INFINITY;
+        let mut best_at = 0;
         let status = loop {
             let xpx = self.residuals(qp);
             let error = self.optimality_error(xpx);
@@ -820,13 +880,21 @@ impl Workspace {
             if let Some(st) = self.certificate(qp, settings.infeasibility_tolerance) {
                 break st;
             }
+            if std::env::var_os("COSTATE_IPM_TRACE").is_some() {
+                eprintln!("ipm {iterations}: err {error:.2e} mu {:.2e} rx {:.2e} ry {:.2e} rz {:.2e} |x| {:.2e} |w| {:.2e} |s| {:.2e} perturbed {} minS {:.2e} minZ {:.2e}", if ms > 0 { dot(&self.s, &self.z) / ms as f64 } else { 0.0 }, inf_norm(&self.rx), inf_norm(&self.ry), inf_norm(&self.rz), inf_norm(&self.x), inf_norm(&self.y).max(inf_norm(&self.z)), inf_norm(&self.s), self.kkt.perturbed, self.s.iter().fold(f64::INFINITY, |a, &b| a.min(b)), self.z.iter().fold(f64::INFINITY, |a, &b| a.min(b)));
+            }
             if error < best {
                 best = error;
+                best_at = iterations;
                 self.save_best();
             }
             // Near the end the Newton systems are close to singular; an iterate that walks
             // away from a nearly optimal one is not followed further.
-            let diverging = best <= settings.reduced_tolerance && error > 1e3 * best;
+            // No better iterate for a long while (the multipliers of a nearly inconsistent QP
+            // grow without end), or one that is no number at all: give up early.
+            let diverging = (best <= settings.reduced_tolerance && error > 1e3 * best)
+                || iterations > best_at + STALL_ITERATIONS
+                || error.is_nan();
             if iterations >= settings.max_iterations || slow >= 5 || diverging {
                 // Certificates at the iterate reached (they lie at its end), then optimality
                 // at the best iterate seen, both to the reduced tolerance.
@@ -834,7 +902,7 @@ impl Workspace {
                 if let Some(st) = self.certificate(qp, tol) {
                     break st;
                 }
-                if error > best {
+                if !(error <= best) {
                     self.restore_best();
                 }
                 let xpx = self.residuals(qp);

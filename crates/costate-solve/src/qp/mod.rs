@@ -10,6 +10,7 @@
 mod clarabel;
 pub mod ipm;
 mod kkt;
+mod scaling;
 pub mod stage;
 
 pub use clarabel::{ClarabelQp, ClarabelQpSettings};

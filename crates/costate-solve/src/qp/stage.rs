@@ -349,11 +349,24 @@ impl StageQp {
 
     /// `out = H d`.
     pub fn mul_hessian(&self, d: &[f64], out: &mut [f64]) {
-        let l = &self.layout;
+        mul_blocks(&self.layout, &self.hessian, d, out);
+    }
+
+    /// `1/2 d'Hd + g'd`.
+    pub fn objective(&self, d: &[f64]) -> f64 {
+        let mut hd = vec![0.0; d.len()];
+        self.mul_hessian(d, &mut hd);
+        d.iter().zip(&hd).zip(&self.gradient).map(|((di, hi), gi)| di * (0.5 * hi + gi)).sum()
+    }
+}
+
+/// `out = H d` for Hessian blocks `hessian` laid out like [`StageQp::hessian`].
+pub fn mul_blocks(l: &StageLayout, hessian: &[f64], d: &[f64], out: &mut [f64]) {
+    {
         for k in 0..l.stages() {
             let r = l.vars(k);
             let nk = r.len();
-            let h = self.hessian_block(k);
+            let h = &hessian[l.hessian_block(k)];
             let (dk, ok) = (&d[r.clone()], &mut out[r]);
             ok.fill(0.0);
             for j in 0..nk {
@@ -365,13 +378,6 @@ impl StageQp {
                 }
             }
         }
-    }
-
-    /// `1/2 d'Hd + g'd`.
-    pub fn objective(&self, d: &[f64]) -> f64 {
-        let mut hd = vec![0.0; d.len()];
-        self.mul_hessian(d, &mut hd);
-        d.iter().zip(&hd).zip(&self.gradient).map(|((di, hi), gi)| di * (0.5 * hi + gi)).sum()
     }
 }
 

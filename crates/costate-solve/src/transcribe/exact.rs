@@ -12,21 +12,21 @@
 //! Hessian tape) like any user function, and the Hessian is exact for the computed map, the
 //! same map whose first derivatives the integrator's forward sensitivities give.
 //!
-//! Not covered (the transcription then offers no Hessian and the SQP uses block BFGS):
-//! the Radau IIA integrator (second derivatives of an implicit map need second-order adjoint
-//! sensitivities, not built), and endpoint functions with second derivatives in the integrals
-//! `Q` (they would couple every interval with every other).
+//! Not covered (the transcription then offers no Hessian and the SQP uses block BFGS): the
+//! Radau IIA integrator (second derivatives of an implicit map need second-order adjoint
+//! sensitivities, not built). Endpoint functions may be nonlinear in the integrals: those
+//! enter as the running sums at the last node (see `layout.rs`), so their second
+//! derivatives stay in that node's block.
 
 use std::collections::HashMap;
 
-use costate_model::{
-    BinaryOp, EndpointLayout, Function, Graph, NodeId, Ocp, RunningLayout, Workspace,
-};
+use costate_model::{BinaryOp, Function, Graph, NodeId, Ocp, Workspace};
 
 use crate::integrate::{rk4_tableau, ControlShape, IntegratorSettings, Method};
 use crate::nlp::Pattern;
 
 use super::layout::Layout;
+use super::shooting::{endpoint_var, running_var};
 
 /// `(entry of a function's Hessian pattern, entry of the NLP pattern, factor)`.
 type Scatter = Vec<(usize, usize, f64)>;
@@ -74,8 +74,10 @@ pub(crate) struct ExactHessian {
     /// Per interval and per node.
     step_maps: Vec<Scatter>,
     path_maps: Vec<Scatter>,
-    objective_map: Scatter,
-    boundary_map: Scatter,
+    /// Objective and boundary scatters for the evaluation at node 0 (`[0]`) and at the last
+    /// node (`[1]`).
+    objective_maps: [Scatter; 2],
+    boundary_maps: [Scatter; 2],
 }
 
 /// Lower-triangle NLP pattern built entry by entry, repeated pairs sharing one position.
@@ -212,11 +214,6 @@ impl ExactHessian {
             return None;
         }
         let ep = ocp.endpoint_layout();
-        let q0 = ep.q(0);
-        let touches_q = |f: &Function| f.hessian_pattern().iter().any(|&(r, c)| r >= q0 || c >= q0);
-        if layout.nq > 0 && (touches_q(&ocp.objective) || touches_q(&ocp.boundary)) {
-            return None;
-        }
         let linear = settings.controls == ControlShape::Linear;
         let step = rk4_step(ocp, t0, settings.substeps.max(1), linear)?;
         let l = layout;
@@ -236,7 +233,7 @@ impl ExactHessian {
                     j -= nu;
                     if linear {
                         if j < nu {
-                            return Some((l.u_at(k + 1, j), 1.0));
+                            return Some((l.v(k, j), 1.0));
                         }
                         j -= nu;
                     }
@@ -253,42 +250,21 @@ impl ExactHessian {
             })
             .collect();
 
-        let rl = RunningLayout { nx, nu, np };
         let path_maps = (0..l.n_nodes())
-            .map(|k| {
-                let var = |j: usize| -> Option<(usize, f64)> {
-                    if j == RunningLayout::T {
-                        // t_k = t0 + s_k (tf - t0).
-                        l.tf_at(k).map(|t| (t, mesh[k]))
-                    } else if j < rl.u(0) {
-                        Some((l.x(k, j - rl.x(0)), 1.0))
-                    } else if j < rl.p(0) {
-                        Some((l.u_at(k, j - rl.u(0)), 1.0))
-                    } else {
-                        Some((l.p_at(k, j - rl.p(0)), 1.0))
-                    }
-                };
-                pb.map(&ocp.path, &var)
-            })
+            .map(|k| pb.map(&ocp.path, &|j| running_var(l, mesh, k, j)))
             .collect();
 
-        let endpoint_var = |j: usize| -> Option<(usize, f64)> {
-            if j == EndpointLayout::T0 {
-                None
-            } else if j == EndpointLayout::TF {
-                l.tf().map(|t| (t, 1.0))
-            } else if j < ep.xf(0) {
-                Some((l.x(0, j - ep.x0(0)), 1.0))
-            } else if j < ep.p(0) {
-                Some((l.x(l.intervals, j - ep.xf(0)), 1.0))
-            } else if j < ep.q(0) {
-                Some((l.p(j - ep.p(0)), 1.0))
-            } else {
-                None
-            }
+        let endpoint = |pb: &mut PatternBuilder, f: &Function, at_start: bool| {
+            pb.map(f, &|j| endpoint_var(l, &ep, at_start, j).map(|v| (v, 1.0)))
         };
-        let objective_map = pb.map(&ocp.objective, &endpoint_var);
-        let boundary_map = pb.map(&ocp.boundary, &endpoint_var);
+        let objective_maps = [
+            endpoint(&mut pb, &ocp.objective, true),
+            endpoint(&mut pb, &ocp.objective, false),
+        ];
+        let boundary_maps = [
+            endpoint(&mut pb, &ocp.boundary, true),
+            endpoint(&mut pb, &ocp.boundary, false),
+        ];
         Some(ExactHessian {
             pattern: pb.pattern,
             path: Part::new(&ocp.path),
@@ -297,8 +273,8 @@ impl ExactHessian {
             step: Part::new(&step),
             step_maps,
             path_maps,
-            objective_map,
-            boundary_map,
+            objective_maps,
+            boundary_maps,
         })
     }
 
@@ -324,7 +300,7 @@ impl ExactHessian {
         }
         if l.linear_controls {
             for i in 0..l.nu {
-                inp[at] = w[l.u_at(k + 1, i)];
+                inp[at] = w[l.v(k, i)];
                 at += 1;
             }
         }
@@ -356,26 +332,28 @@ impl ExactHessian {
         self.path.scatter(&self.path_maps[k], out);
     }
 
-    /// Objective (weight `sigma`) and boundary rows (weights `weights`) at endpoint input
-    /// `input`.
+    /// Objective (weight `sigma`) and boundary rows (weights `weights`) evaluated at node 0
+    /// (`at_start`) or the last node, with endpoint input `input`.
     pub(crate) fn add_endpoint(
         &mut self,
+        at_start: bool,
         input: &[f64],
         sigma: f64,
         weights: &[f64],
         out: &mut [f64],
     ) {
-        if !self.objective_map.is_empty() {
+        let side = usize::from(!at_start);
+        if sigma != 0.0 && !self.objective_maps[side].is_empty() {
             self.objective.input.copy_from_slice(input);
             self.objective.weights[0] = sigma;
             self.objective.eval();
-            self.objective.scatter(&self.objective_map, out);
+            self.objective.scatter(&self.objective_maps[side], out);
         }
-        if !self.boundary_map.is_empty() {
+        if weights.iter().any(|&v| v != 0.0) && !self.boundary_maps[side].is_empty() {
             self.boundary.input.copy_from_slice(input);
             self.boundary.weights.copy_from_slice(weights);
             self.boundary.eval();
-            self.boundary.scatter(&self.boundary_map, out);
+            self.boundary.scatter(&self.boundary_maps[side], out);
         }
     }
 }

@@ -10,18 +10,17 @@
 //!
 //! # The NLP
 //! Nodes `k = 0..=N` sit at fractions `s_k` of the horizon (uniform by default, any strictly
-//! increasing mesh from 0 to 1 allowed). Variables node by node: `x_k`, then `u_k` where the
-//! node has its own control (`k < N` for piecewise-constant controls, every node for linear
-//! ones), then the node's copies of the parameters and of a free `tf` (see [`Layout`] for why).
-//! Rows: continuity `x_{k+1} - F_k(x_k, u_k, [u_{k+1}], p_k, t_k, h_k) = 0` and copy rows
-//! `p_{k+1} = p_k`, `tf_{k+1} = tf_k` per interval, path rows at every node
-//! (the last node of piecewise-constant controls uses the last interval's control), then the
-//! boundary rows `b(t0, tf, x_0, x_N, p, Q)` with `Q` the sum of the interval integrals. State,
-//! start, end, control, parameter and end-time bounds are variable bounds. The objective
-//! `phi(t0, tf, x_0, x_N, p, Q)` has an exact gradient. With the RK4 integrator the NLP also
-//! has an exact Lagrangian Hessian (see `exact.rs`: the whole interval map is one expression
-//! graph differentiated symbolically); with Radau IIA, or endpoint functions nonlinear in the
-//! integrals, it has none and the SQP uses its damped block BFGS with one block per node.
+//! increasing mesh from 0 to 1 allowed). Each node is one stage of the QP: its state, its
+//! control, and copies of everything the whole horizon shares (parameters, a free end time,
+//! running sums of the integrals, start values read at the end), tied to the next node by
+//! coupling rows (continuity `x_{k+1} - F_k(x_k, u_k, [v_k], p_k, t_k, h_k) = 0` and the copy
+//! and running-sum rows); path rows at every node; boundary rows at node 0 when they read only
+//! start values, else at the last node. See [`Layout`] for why every shared quantity is
+//! carried along. State, start, end, control, parameter and end-time bounds are variable
+//! bounds. The objective `phi(t0, tf, x_0, x_N, p, Q)` has an exact gradient. With the RK4
+//! integrator the NLP also has an exact Lagrangian Hessian (see `exact.rs`: the whole interval
+//! map is one expression graph differentiated symbolically); with Radau IIA it has none and
+//! the SQP uses its damped block BFGS with one block per node.
 
 mod exact;
 mod layout;
@@ -34,10 +33,10 @@ use costate_model::{FunctionKind, Ocp};
 
 use crate::integrate::IntegratorSettings;
 use crate::nlp::{EvalError, EvalPart, Nlp};
-use crate::settings::{HessianMode, SqpSettings};
+use crate::settings::SqpSettings;
 use crate::sqp::{solve_nlp, IterationRow, SqpResult, SqpStatus, StallReason, Timing};
 
-pub use layout::{decode_tag, function_tag, Layout, ViolationSource};
+pub use layout::{decode_tag, function_tag, EndpointPlacement, Layout, ViolationSource};
 pub use shooting::MultipleShooting;
 
 /// Settings of [`solve_ocp`].
@@ -95,9 +94,9 @@ impl std::fmt::Display for MemoryEstimate {
 }
 
 /// Estimate the size and memory of the solve of `ocp` on `intervals` intervals, in floating
-/// point so that absurd interval counts cannot overflow. Counts follow the layout of
-/// [`Layout`]; the QP factor is estimated as a band of the width of two coupled nodes per
-/// interval, which is what the multiple-shooting KKT structure gives after ordering.
+/// point so that absurd interval counts cannot overflow. Counts follow [`Layout`] (upper
+/// bounds per node: every node counted with all its possible variables and rows); the QP's
+/// factorisation is one dense block per node ([`crate::qp`]).
 pub fn estimate_memory(
     ocp: &Ocp,
     intervals: usize,
@@ -113,30 +112,33 @@ pub fn estimate_memory(
         if matches!(ocp.horizon.end, costate_model::EndTime::Free { .. }) { 1.0 } else { 0.0 };
     let linear = integrator.controls == crate::integrate::ControlShape::Linear;
     let nuc = if linear { 2.0 * nu } else { nu };
+    // Carried start values: at most every state.
+    let ns = nx;
     let big_n = intervals as f64;
     let nodes = big_n + 1.0;
-    let block = nx + nu + np + free;
+    let block = nx + nuc + np + free + nq + ns;
+    let coupling = nx + nu + np + free + nq + ns;
     let variables = nodes * block;
-    let copies = np + free;
-    let constraints = big_n * (nx + copies) + nodes * ng + nb;
+    let constraints = big_n * coupling + nodes * ng + nb;
     let cols = nx + nuc + np + 2.0;
-    let jacobian_nonzeros = big_n * (nx * (1.0 + nx + nuc + np + free) + 2.0 * copies)
+    let jacobian_nonzeros = big_n * (nx + nq) * (2.0 + nx + nuc + np + free)
+        + big_n * 2.0 * (nu + np + free + ns)
         + nodes * ng * (1.0 + nx + nu + np)
-        + nb * (2.0 * nx + np + 1.0)
-        + if nq > 0.0 { nb * variables } else { 0.0 };
+        + nb * (1.0 + 2.0 * nx + np + nq);
     let hessian_nonzeros = nodes * block * (block + 1.0) / 2.0;
-    let band = 2.0 * block + nx + copies + ng;
-    let factor_nonzeros = (big_n + 1.0) * band * band;
-    // Per nonzero of a triplet or CSC matrix: two indices and a value. The SQP holds the
-    // Jacobian and Hessian in several forms (its own, the QP's, the elastic QP's, the
-    // solver's CSC and KKT copies); vectors of length n or m appear a few dozen times;
-    // integration keeps sensitivities per interval and a dense integral derivative (nq x n).
-    let per_entry = 24.0;
-    let bytes = per_entry * 6.0 * (jacobian_nonzeros + hessian_nonzeros)
-        + 16.0 * 2.0 * factor_nonzeros
+    // Dense storage of the QP: Hessian blocks, rows over one or two nodes, and the Newton
+    // matrix and its factor, one block per node.
+    let kkt = block + ng + nb + coupling;
+    let factor_nonzeros = nodes * kkt * kkt;
+    let dense = nodes * (block * block + (ng + nb) * block + coupling * 2.0 * block);
+    // The NLP keeps its Jacobian and Hessian values and patterns (two indices each) and the
+    // SQP its scatter maps; the QP is built twice (regular and elastic); vectors of length
+    // n or m appear a few dozen times; integration keeps sensitivities per interval.
+    let bytes = 8.0 * 3.0 * (jacobian_nonzeros + hessian_nonzeros) * 2.0
+        + 8.0 * 2.0 * dense
+        + 8.0 * 2.0 * 2.0 * factor_nonzeros
         + 8.0 * 40.0 * (variables + constraints)
-        + 8.0 * big_n * (nx + nq) * (cols + 1.0) * 2.0
-        + 8.0 * nq * variables;
+        + 8.0 * big_n * (nx + nq) * (cols + 1.0) * 2.0;
     MemoryEstimate {
         intervals,
         variables,
@@ -192,6 +194,69 @@ pub struct Violation {
     pub amount: f64,
 }
 
+/// A bound or constraint in the conflict of a locally infeasible point: what it stands for,
+/// the side it presses against and that side's value (SI units), at which nodes.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Conflicting {
+    pub what: ViolationSource,
+    pub upper: bool,
+    pub bound: f64,
+    /// Nodes where it takes part (empty for boundary rows and parameters).
+    pub nodes: Vec<usize>,
+    /// Largest relative multiplier among its nodes (in (0, 1]).
+    pub weight: f64,
+}
+
+/// The solver's conflict in the problem's terms: grouped by what each item stands for and
+/// its side, strongest first.
+fn conflicting(
+    l: &Layout,
+    conflict: &[crate::Conflict],
+    (cl, cu): (&[f64], &[f64]),
+    (wl, wu): (&[f64], &[f64]),
+) -> Vec<Conflicting> {
+    let mut out: Vec<Conflicting> = Vec::new();
+    for c in conflict {
+        let (what, node, bound) = match c.item {
+            crate::ConflictItem::Row(i) => {
+                let (what, node) = l.decode_row(i);
+                let coupling = l.stages().stage_of_row(i).1;
+                if coupling {
+                    continue;
+                }
+                (what, node, if c.upper { cu[i] } else { cl[i] })
+            }
+            crate::ConflictItem::Bound(j) => {
+                let (what, node) = l.decode_variable(j);
+                (what, node, if c.upper { wu[j] } else { wl[j] })
+            }
+        };
+        let node = match what {
+            ViolationSource::ParamBound(_) | ViolationSource::EndTime => None,
+            _ => node,
+        };
+        match out.iter_mut().find(|o| o.what == what && o.upper == c.upper && o.bound == bound) {
+            Some(o) => {
+                o.nodes.extend(node);
+                o.weight = o.weight.max(c.weight);
+            }
+            None => out.push(Conflicting {
+                what,
+                upper: c.upper,
+                bound,
+                nodes: node.into_iter().collect(),
+                weight: c.weight,
+            }),
+        }
+    }
+    for o in &mut out {
+        o.nodes.sort_unstable();
+        o.nodes.dedup();
+    }
+    out.sort_by(|a, b| b.weight.total_cmp(&a.weight));
+    out
+}
+
 /// How a solve ended.
 #[derive(Clone, Debug, PartialEq)]
 pub enum OcpStatus {
@@ -201,6 +266,11 @@ pub enum OcpStatus {
     /// the feasibility tolerance (and every row the SQP named), largest first.
     LocallyInfeasible {
         violations: Vec<Violation>,
+        /// The bounds and constraints that hold the violation up, strongest first: no step
+        /// reduces the violation without breaking one of them further (see
+        /// [`crate::Conflict`]). Continuity and copy rows are left out: they are where the
+        /// violation shows, not its cause.
+        conflict: Vec<Conflicting>,
     },
     IterationLimit,
     TimeLimit,
@@ -269,36 +339,7 @@ pub fn solve_ocp(
     if let Some(t) = warm {
         nlp.warm_start(t)?;
     }
-    let started = std::time::Instant::now();
-    let mut result = run(&mut nlp, &settings.sqp, cancel.clone(), observer)?;
-    // Safeguard of the automatic mode: the exact Hessian converges fast where it converges,
-    // but with little curvature at the start (an objective linear in a free end time) its
-    // first steps can jump to a bound and end at a stationary point of the violation. Block
-    // BFGS, which starts from the identity, then gets one attempt of its own from the start.
-    let retry = settings.sqp.hessian == HessianMode::Auto
-        && nlp.has_exact_hessian()
-        && matches!(
-            result.status,
-            SqpStatus::LocallyInfeasible { .. }
-                | SqpStatus::Stalled { .. }
-                | SqpStatus::IterationLimit
-        );
-    let left = settings.sqp.time_limit - started.elapsed().as_secs_f64();
-    if retry && left > 0.0 {
-        let first = result;
-        let sqp = SqpSettings { time_limit: left, ..settings.sqp.clone() };
-        nlp = nlp.without_exact_hessian();
-        let mut second = run(&mut nlp, &sqp, cancel, observer)?;
-        second.iterations += first.iterations;
-        second.timing.evaluation += first.timing.evaluation;
-        second.timing.qp += first.timing.qp;
-        second.timing.other += first.timing.other;
-        second.timing.total += first.timing.total;
-        let mut history = first.history;
-        history.append(&mut second.history);
-        second.history = history;
-        result = second;
-    }
+    let result = run(&mut nlp, &settings.sqp, cancel, observer)?;
     Ok(report(&mut nlp, result, settings.sqp.feasibility_tolerance))
 }
 
@@ -348,7 +389,7 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSoluti
     let trajectory = Trajectory {
         states: (0..l.nx).map(|i| (0..l.n_nodes()).map(|k| w[l.x(k, i)]).collect()).collect(),
         controls: (0..l.nu).map(|i| (0..l.n_nodes()).map(|k| w[l.u_at(k, i)]).collect()).collect(),
-        params: (0..l.np).map(|i| w[l.p(i)]).collect(),
+        params: (0..l.np).map(|i| w[l.p_at(0, i)]).collect(),
         end_time: nlp.end_time(&w),
         times,
     };
@@ -421,7 +462,7 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSoluti
         SqpStatus::EvaluationFailed { error } => {
             OcpStatus::EvaluationFailed(finding(nlp, &l, &error))
         }
-        SqpStatus::LocallyInfeasible { rows } => {
+        SqpStatus::LocallyInfeasible { rows, conflict } => {
             // The solver's rows are measured after scaling; sort ours (unscaled, bounds
             // included) but make sure every row it named is there.
             for v in &rows {
@@ -431,7 +472,8 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSoluti
                 }
             }
             violations.sort_by(|a, b| b.amount.total_cmp(&a.amount));
-            OcpStatus::LocallyInfeasible { violations }
+            let conflict = conflicting(&l, &conflict, (&cl, &cu), (&wl, &wu));
+            OcpStatus::LocallyInfeasible { violations, conflict }
         }
     };
     OcpSolution {
