@@ -198,6 +198,8 @@ pub fn solution_json(loaded: &Loaded, solution: &OcpSolution, intervals: usize) 
             "stationarity": r.residuals.stationarity,
             "step": r.step_length,
             "penalty": r.penalty,
+            "qp_solves": r.qp_solves,
+            "qp_iterations": r.qp_iterations,
         })).collect::<Vec<_>>(),
     })
 }

@@ -73,7 +73,6 @@ pub struct RiccatiConvexifier {
     /// Per stage: local indices of its determined variables (in slot order) and whether each
     /// local variable is determined.
     determined: Vec<Vec<usize>>,
-    is_determined: Vec<Vec<bool>>,
     free: Vec<Vec<usize>>,
     /// Per stage `k`: `T_k' P_{k+1}` (`n_k x d_{k+1}`, column-major) for the gradient terms.
     tp: Vec<Vec<f64>>,
@@ -131,7 +130,6 @@ impl RiccatiConvexifier {
         Some(RiccatiConvexifier {
             ties,
             determined,
-            is_determined,
             free,
             tp,
             p,

@@ -54,8 +54,6 @@ pub(crate) struct BlockKkt {
     fill_factor: Vec<f64>,
     /// Right-hand side of the backward sweep (one block).
     back: Vec<f64>,
-    residual: Vec<f64>,
-    correction: Vec<f64>,
     /// Pivots replaced in the last factorisation.
     pub(crate) perturbed: usize,
 }
@@ -113,8 +111,6 @@ impl BlockKkt {
             scratch: vec![0.0; max_b],
             fill_factor: vec![0.0; max_m],
             back: vec![0.0; max_b],
-            residual: vec![0.0; o],
-            correction: vec![0.0; o],
             perturbed: 0,
         }
     }
@@ -181,18 +177,22 @@ impl BlockKkt {
         let f = &self.factor[self.dense_start[k]..self.dense_start[k + 1]];
         let d_next = &self.next[self.next_start[k]..self.next_start[k + 1]];
         let w0 = nk + ek;
-        // M column by column (unit lower-triangular solve), then accumulated into `fill` with
-        // its diagonal weights.
+        // M row by row (unit lower-triangular solve on whole rows), then accumulated into
+        // `fill` with its diagonal weights.
         let fill = &mut self.fill[..n1 * n1];
         fill.fill(0.0);
         let m = &mut self.fill_factor[..ck * n1];
-        for j in 0..n1 {
-            for i in 0..ck {
-                let mut v = d_next[i * n1 + j];
-                for p in 0..i {
-                    v -= f[(w0 + i) + (w0 + p) * b] * m[p * n1 + j];
+        m.copy_from_slice(&d_next[..ck * n1]);
+        for i in 0..ck {
+            let (done, rest) = m.split_at_mut(i * n1);
+            let row = &mut rest[..n1];
+            for p in 0..i {
+                let l = f[(w0 + i) + (w0 + p) * b];
+                if l != 0.0 {
+                    for (x, y) in row.iter_mut().zip(&done[p * n1..(p + 1) * n1]) {
+                        *x -= l * y;
+                    }
                 }
-                m[i * n1 + j] = v;
             }
         }
         for i in 0..ck {
@@ -204,22 +204,24 @@ impl BlockKkt {
                 if rc == 0.0 {
                     continue;
                 }
-                for r in 0..n1 {
-                    fill[r + c * n1] += row[r] * rc;
+                for (x, r) in fill[c * n1..(c + 1) * n1].iter_mut().zip(row) {
+                    *x += r * rc;
                 }
             }
         }
     }
 
-    /// `v = S_k^{-1} v` for the factorised block `k` (`v` of length `b_k`).
-    fn block_solve(&self, k: usize, v: &mut [f64]) {
+    /// `v = S_k^{-1} v` for the factorised block `k` (`v` of length `b_k`), whose entries
+    /// before `first` are zero.
+    fn block_solve(&self, k: usize, v: &mut [f64], first: usize) {
         let b = v.len();
         let f = &self.factor[self.dense_start[k]..self.dense_start[k + 1]];
-        for j in 0..b {
+        for j in first..b {
             let vj = v[j];
             if vj != 0.0 {
-                for i in j + 1..b {
-                    v[i] -= f[i + j * b] * vj;
+                let col = &f[j * b + j + 1..(j + 1) * b];
+                for (x, l) in v[j + 1..].iter_mut().zip(col) {
+                    *x -= l * vj;
                 }
             }
         }
@@ -227,11 +229,9 @@ impl BlockKkt {
             v[j] /= f[j + j * b];
         }
         for j in (0..b).rev() {
-            let mut s = v[j];
-            for i in j + 1..b {
-                s -= f[i + j * b] * v[i];
-            }
-            v[j] = s;
+            let col = &f[j * b + j + 1..(j + 1) * b];
+            let s: f64 = col.iter().zip(&v[j + 1..]).map(|(l, x)| l * x).sum();
+            v[j] -= s;
         }
     }
 
@@ -256,7 +256,7 @@ impl BlockKkt {
                 }
             }
             let r = self.block_range(k);
-            self.block_solve(k, &mut u[r]);
+            self.block_solve(k, &mut u[r], 0);
         }
         let mut back = std::mem::take(&mut self.back);
         for k in (0..s.saturating_sub(1)).rev() {
@@ -274,7 +274,7 @@ impl BlockKkt {
                 any |= v != 0.0;
             }
             if any {
-                self.block_solve(k, t);
+                self.block_solve(k, t, nk + ek);
                 let r = self.block_range(k);
                 for (ui, ti) in u[r].iter_mut().zip(t.iter()) {
                     *ui -= ti;
@@ -285,6 +285,7 @@ impl BlockKkt {
     }
 
     /// `out = K u` with the unregularised matrix.
+    #[cfg(test)]
     pub(crate) fn multiply(&self, u: &[f64], out: &mut [f64]) {
         let s = self.stages();
         for k in 0..s {
@@ -326,6 +327,7 @@ impl BlockKkt {
     /// Solve `K u = rhs` (unregularised `K`) with the factorisation and up to `max_steps`
     /// steps of iterative refinement, stopping once the residual is below
     /// `tolerance * (1 + |rhs|_inf)` or stops shrinking. Returns the final residual norm.
+    #[cfg(test)]
     pub(crate) fn solve_refined(
         &mut self,
         rhs: &[f64],
@@ -336,8 +338,8 @@ impl BlockKkt {
         u.copy_from_slice(rhs);
         self.solve_in_place(u);
         let limit = tolerance * (1.0 + inf_norm(rhs));
-        let mut residual = std::mem::take(&mut self.residual);
-        let mut correction = std::mem::take(&mut self.correction);
+        let mut residual = vec![0.0; u.len()];
+        let mut correction = vec![0.0; u.len()];
         let mut norm = self.residual_norm(rhs, u, &mut residual);
         for _ in 0..max_steps {
             if norm <= limit {
@@ -361,11 +363,10 @@ impl BlockKkt {
                 break;
             }
         }
-        self.residual = residual;
-        self.correction = correction;
         norm
     }
 
+    #[cfg(test)]
     fn residual_norm(&self, rhs: &[f64], u: &[f64], residual: &mut [f64]) -> f64 {
         self.multiply(u, residual);
         let mut norm: f64 = 0.0;
@@ -377,28 +378,25 @@ impl BlockKkt {
     }
 }
 
+#[cfg(test)]
 fn inf_norm(v: &[f64]) -> f64 {
     v.iter().fold(0.0, |a, x| a.max(x.abs()))
 }
 
 /// Dense `LDL'` of the lower triangle of the `b x b` column-major `a`, in place, without
 /// pivoting: the first `positive` pivots are expected positive, the rest negative. Returns the
-/// number of pivots replaced by `+-reg.dynamic`.
-fn ldl_in_place(
-    a: &mut [f64],
-    b: usize,
-    positive: usize,
-    reg: Regularisation,
-    w: &mut [f64],
-) -> usize {
+/// number of pivots replaced by `+-reg.dynamic`. Left-looking by columns, so the inner loops
+/// run over contiguous column slices.
+fn ldl_in_place(a: &mut [f64], b: usize, positive: usize, reg: Regularisation, w: &mut [f64]) -> usize {
     let mut perturbed = 0;
     for j in 0..b {
         // w_p = L_jp d_p for p < j.
         let mut d = a[j + j * b];
         for p in 0..j {
             let l = a[j + p * b];
-            w[p] = l * a[p + p * b];
-            d -= l * w[p];
+            let wp = l * a[p + p * b];
+            w[p] = wp;
+            d -= l * wp;
         }
         let sign = if j < positive { 1.0 } else { -1.0 };
         // A NaN pivot is replaced too.
@@ -406,18 +404,21 @@ fn ldl_in_place(
             d = sign * reg.dynamic;
             perturbed += 1;
         }
-        a[j + j * b] = d;
+        let (left, right) = a.split_at_mut(j * b);
+        right[j] = d;
+        let col = &mut right[j + 1..b];
         for p in 0..j {
             let wp = w[p];
             if wp != 0.0 {
-                for i in j + 1..b {
-                    a[i + j * b] -= a[i + p * b] * wp;
+                let lp = &left[p * b + j + 1..p * b + b];
+                for (x, y) in col.iter_mut().zip(lp) {
+                    *x -= y * wp;
                 }
             }
         }
         let inv = 1.0 / d;
-        for i in j + 1..b {
-            a[i + j * b] *= inv;
+        for x in col.iter_mut() {
+            *x *= inv;
         }
     }
     perturbed

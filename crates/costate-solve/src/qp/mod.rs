@@ -102,4 +102,12 @@ impl std::error::Error for QpError {}
 /// status. The solution goes into `out`, resized to the QP.
 pub trait QpSolver {
     fn solve(&mut self, qp: &StageQp, out: &mut QpSolution) -> Result<(), QpError>;
+
+    /// After a successful [`QpSolver::solve`]: the change of its solution when the rows'
+    /// bounds move by `row_shift` and the gradient by `gradient_shift`, keeping the solution's
+    /// active set, into `out` (one linear solve, the second-order correction of an SQP).
+    /// `false` when the solver cannot, and the caller solves the shifted QP instead.
+    fn shifted_step(&mut self, _row_shift: &[f64], _gradient_shift: &[f64], _out: &mut [f64]) -> bool {
+        false
+    }
 }

@@ -16,7 +16,7 @@ use super::{QpSolution, StageQp};
 use crate::nlp::finite_bound;
 
 /// Ruiz iterations per QP.
-const ITERATIONS: usize = 10;
+const ITERATIONS: usize = 5;
 /// Every scale factor stays in `[1 / LIMIT, LIMIT]`.
 const LIMIT: f64 = 1e4;
 

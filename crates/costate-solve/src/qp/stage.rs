@@ -46,6 +46,11 @@ pub struct StageLayout {
     /// Start of stage `k`'s row block (local rows, then coupling rows) in
     /// [`StageQp::jacobian`].
     jacobian_start: Vec<usize>,
+    /// Per row: start of its storage, its width and the first variable it covers (looked up
+    /// on every product, so kept rather than recomputed).
+    row_offset: Vec<usize>,
+    row_width: Vec<usize>,
+    row_first: Vec<usize>,
 }
 
 impl StageLayout {
@@ -90,7 +95,36 @@ impl StageLayout {
         row_start.push(r);
         hessian_start.push(h);
         jacobian_start.push(j);
-        Ok(StageLayout { var_start, row_start, local_end, hessian_start, jacobian_start })
+        let mut row_offset = Vec::with_capacity(r);
+        let mut row_width = Vec::with_capacity(r);
+        let mut row_first = Vec::with_capacity(r);
+        for k in 0..s {
+            let n = variables[k];
+            let next = if k + 1 < s { variables[k + 1] } else { 0 };
+            let mut at = jacobian_start[k];
+            for _ in 0..local_rows[k] {
+                row_offset.push(at);
+                row_width.push(n);
+                row_first.push(var_start[k]);
+                at += n;
+            }
+            for _ in 0..coupling_rows[k] {
+                row_offset.push(at);
+                row_width.push(n + next);
+                row_first.push(var_start[k]);
+                at += n + next;
+            }
+        }
+        Ok(StageLayout {
+            var_start,
+            row_start,
+            local_end,
+            hessian_start,
+            jacobian_start,
+            row_offset,
+            row_width,
+            row_first,
+        })
     }
 
     /// One stage holding `n` variables and `m` local rows: a QP without stage structure.
@@ -154,25 +188,12 @@ impl StageLayout {
 
     /// Width of row `i`'s dense storage and the first variable it covers.
     pub fn row_span(&self, i: usize) -> (usize, usize) {
-        let (k, coupling) = self.stage_of_row(i);
-        let n = self.stage_size(k);
-        let w = if coupling { n + self.stage_size(k + 1) } else { n };
-        (w, self.var_start[k])
+        (self.row_width[i], self.row_first[i])
     }
 
     /// Range of row `i`'s dense storage in [`StageQp::jacobian`].
     pub fn row_block(&self, i: usize) -> Range<usize> {
-        let (k, coupling) = self.stage_of_row(i);
-        let n = self.stage_size(k);
-        let m_local = self.local_end[k] - self.row_start[k];
-        let start = if coupling {
-            let w = n + self.stage_size(k + 1);
-            self.jacobian_start[k] + m_local * n + (i - self.local_end[k]) * w
-        } else {
-            self.jacobian_start[k] + (i - self.row_start[k]) * n
-        };
-        let w = if coupling { n + self.stage_size(k + 1) } else { n };
-        start..start + w
+        self.row_offset[i]..self.row_offset[i] + self.row_width[i]
     }
 
     /// Position in [`StageQp::jacobian`] of entry `(row, var)`, or `None` when the variable is
@@ -238,9 +259,10 @@ impl StageQp {
     }
 
     /// Dense row `i` and the first variable it covers.
+    #[inline]
     pub fn row(&self, i: usize) -> (&[f64], usize) {
-        let (_, first) = self.layout.row_span(i);
-        (&self.jacobian[self.layout.row_block(i)], first)
+        let l = &self.layout;
+        (&self.jacobian[l.row_block(i)], l.row_first[i])
     }
 
     /// Stage `k`'s Hessian block (`n_k x n_k`, column-major).

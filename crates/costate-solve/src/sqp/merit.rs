@@ -136,42 +136,77 @@ impl LineSearch<'_> {
         row: &mut IterationRow,
     ) -> Result<bool, ArgminError> {
         let s = &wk.setup;
-        let qp = &mut wk.model.qp;
-        // cjd = c + J d from the penalty update; the new bounds are cl - c(y + d) + J d.
+        // cjd = c + J d from the penalty update; the new bounds are the old ones shifted by
+        // c + J d - c(y + d).
         for i in 0..s.m {
-            let jd = wk.cjd[i] - wk.point.c[i];
-            qp.row_lower[i] = s.cl[i] - wk.trial.c[i] + jd;
-            qp.row_upper[i] = s.cu[i] - wk.trial.c[i] + jd;
+            wk.row_shift[i] = wk.cjd[i] - wk.trial.c[i];
         }
+        // The chain convexification's gradient depends on the coupling rows' bounds.
+        wk.grad_shift.fill(0.0);
         if let Some(r) = &mut wk.riccati {
+            wk.grad_shift.copy_from_slice(&wk.model.qp.gradient);
+            for i in 0..s.m {
+                wk.model.qp.row_lower[i] += wk.row_shift[i];
+            }
             r.gradient(&mut wk.model.qp, &wk.point.g, &wk.aug);
-        }
-        let t = Instant::now();
-        let solved = wk.model.solve(wk.qp.as_mut());
-        *self.qp_time += t.elapsed();
-        row.qp_solves += 1;
-        row.qp_iterations += wk.model.sol.iterations;
-        if let Some(r) = &mut wk.riccati {
-            if wk.model.sol.status.has_solution() {
-                let sol = &mut wk.model.sol;
-                r.correct_multipliers(
-                    &wk.model.qp,
-                    &wk.aug,
-                    &sol.step,
-                    &mut sol.row_multipliers,
-                    &mut sol.bound_multipliers,
-                );
+            for i in 0..s.m {
+                wk.model.qp.row_lower[i] -= wk.row_shift[i];
+            }
+            for j in 0..s.n {
+                let shifted = wk.model.qp.gradient[j];
+                wk.model.qp.gradient[j] = wk.grad_shift[j];
+                wk.grad_shift[j] = shifted - wk.grad_shift[j];
             }
         }
-        // The regular bounds again, for whatever uses the QP next.
-        for i in 0..s.m {
-            wk.model.qp.row_lower[i] = s.cl[i] - wk.point.c[i];
-            wk.model.qp.row_upper[i] = s.cu[i] - wk.point.c[i];
+        // One solve with the last Newton matrix of the QP (its active set), else the
+        // shifted QP solved anew.
+        let t = Instant::now();
+        let cheap = wk.qp.shifted_step(&wk.row_shift, &wk.grad_shift, &mut wk.model.sol.step);
+        if cheap {
+            for j in 0..s.n {
+                wk.model.sol.step[j] += wk.step[j];
+            }
+            wk.model.sol.row_multipliers.copy_from_slice(&wk.step_lambda);
+            wk.model.sol.bound_multipliers.copy_from_slice(&wk.step_nu);
+            wk.model.sol.status = crate::qp::QpStatus::Solved;
+            *self.qp_time += t.elapsed();
+        } else {
+            let qp = &mut wk.model.qp;
+            for i in 0..s.m {
+                qp.row_lower[i] += wk.row_shift[i];
+                qp.row_upper[i] += wk.row_shift[i];
+            }
+            for j in 0..s.n {
+                qp.gradient[j] += wk.grad_shift[j];
+            }
+            let solved = wk.model.solve(wk.qp.as_mut());
+            *self.qp_time += t.elapsed();
+            row.qp_solves += 1;
+            row.qp_iterations += wk.model.sol.iterations;
+            if let Some(r) = &mut wk.riccati {
+                if wk.model.sol.status.has_solution() {
+                    let sol = &mut wk.model.sol;
+                    r.correct_multipliers(
+                        &wk.model.qp,
+                        &wk.aug,
+                        &sol.step,
+                        &mut sol.row_multipliers,
+                        &mut sol.bound_multipliers,
+                    );
+                }
+            }
+            // The regular QP again, for whatever uses it next.
+            let qp = &mut wk.model.qp;
+            for i in 0..s.m {
+                qp.row_lower[i] -= wk.row_shift[i];
+                qp.row_upper[i] -= wk.row_shift[i];
+            }
+            for j in 0..s.n {
+                qp.gradient[j] -= wk.grad_shift[j];
+            }
+            solved.map_err(ArgminError::msg)?;
         }
-        if let Some(r) = &mut wk.riccati {
-            r.gradient(&mut wk.model.qp, &wk.point.g, &wk.aug);
-        }
-        solved.map_err(ArgminError::msg)?;
+        // The correction keeps the variable bounds only when the QP enforced them.
         if !wk.model.sol.status.has_solution()
             || wk.model.sol.step.iter().any(|v| !v.is_finite())
             || inf_norm(&wk.model.sol.step) > 1e3 * inf_norm(&wk.step).max(1e-300)

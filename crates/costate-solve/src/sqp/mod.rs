@@ -425,8 +425,11 @@ struct Work {
     step: Vec<f64>,
     step_lambda: Vec<f64>,
     step_nu: Vec<f64>,
-    /// Scratch: `c + J d` (m), `H d` and Lagrangian gradients (n).
+    /// Scratch: `c + J d` (m), `H d` and Lagrangian gradients (n), and the shifts of a
+    /// second-order correction.
     cjd: Vec<f64>,
+    row_shift: Vec<f64>,
+    grad_shift: Vec<f64>,
     hd: Vec<f64>,
     lg: Vec<f64>,
     lg_old: Vec<f64>,
@@ -1061,6 +1064,8 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             step_lambda: vec![0.0; m],
             step_nu: vec![0.0; n],
             cjd: vec![0.0; m],
+            row_shift: vec![0.0; m],
+            grad_shift: vec![0.0; n],
             hd: vec![0.0; n],
             lg: vec![0.0; n],
             lg_old: vec![0.0; n],
