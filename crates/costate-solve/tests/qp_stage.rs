@@ -287,6 +287,81 @@ fn random_feasible_qps_match_the_reference_and_the_known_solution() {
     assert!(checked_multipliers > 200, "only {checked_multipliers} cases with unique multipliers");
 }
 
+/// Penalised rows (the elastic form): a row penalised with a weight above its multiplier
+/// keeps the solution (an exact penalty, Nocedal and Wright, op. cit., Theorem 17.3), and a
+/// row whose bounds are moved away from the solution is violated there with its multiplier
+/// at plus or minus the weight (the subgradient of the weight times the distance); the
+/// gradient is set from those multipliers. Same tolerances as the hard QPs.
+#[test]
+fn random_penalised_qps_match_the_reference_and_the_known_solution() {
+    let mut rng = Lcg(5150);
+    let mut ipm = ours();
+    let mut clarabel = reference();
+    let mut violated = 0;
+    for case_no in 0..200 {
+        let mut case = loop {
+            let c = random_case(&mut rng, false, false);
+            if c.unique_multipliers {
+                break c;
+            }
+        };
+        let l = case.qp.layout.clone();
+        let m = l.num_rows();
+        let mut ax = vec![0.0; m];
+        case.qp.mul_jacobian(&case.x, &mut ax);
+        for i in 0..m {
+            if rng.next() < 0.4 {
+                continue;
+            }
+            let (_, coupling) = l.stage_of_row(i);
+            let old = case.lambda[i];
+            let (v, gap, weight) = (ax[i], rng.range(0.1, 1.0), rng.range(0.5, 2.0));
+            let new = match rng.int(3) {
+                0 => {
+                    case.qp.row_penalty[i] = old.abs() + weight;
+                    continue;
+                }
+                1 => {
+                    // Violated below: a'x < lower.
+                    let hi = if coupling || rng.next() < 0.3 { v + gap } else { INF };
+                    case.qp.row_lower[i] = v + gap;
+                    case.qp.row_upper[i] = hi;
+                    -weight
+                }
+                _ => {
+                    let lo = if coupling || rng.next() < 0.3 { v - gap } else { -INF };
+                    case.qp.row_lower[i] = lo;
+                    case.qp.row_upper[i] = v - gap;
+                    weight
+                }
+            };
+            violated += 1;
+            case.qp.row_penalty[i] = weight;
+            case.lambda[i] = new;
+            // g -= a_i (new - old): stationarity with the new multiplier.
+            let (row, first) = case.qp.row(i);
+            let shift: Vec<(usize, f64)> =
+                row.iter().enumerate().map(|(c, a)| (first + c, a * (new - old))).collect();
+            for (j, d) in shift {
+                case.qp.gradient[j] -= d;
+            }
+        }
+        let mine = solve(&mut ipm, &case.qp);
+        let theirs = solve(&mut clarabel, &case.qp);
+        let what = format!("case {case_no} (layout {:?})", case.qp.layout);
+        assert_eq!(mine.status, QpStatus::Solved, "{what}: ipm");
+        assert!(theirs.status.has_solution(), "{what}: clarabel {:?}", theirs.status);
+        let tol = 1e-7;
+        assert!(rel(&mine.step, &case.x) < tol, "{what}: x {:?} vs {:?}", mine.step, case.x);
+        assert!(rel(&theirs.step, &case.x) < tol, "{what}: clarabel x");
+        assert!(rel(&mine.row_multipliers, &case.lambda) < tol, "{what}: lambda");
+        assert!(rel(&mine.bound_multipliers, &case.nu) < tol, "{what}: nu");
+        assert!(rel(&mine.row_multipliers, &theirs.row_multipliers) < tol, "{what}");
+        assert!(rel(&mine.bound_multipliers, &theirs.bound_multipliers) < tol, "{what}");
+    }
+    assert!(violated > 150, "only {violated} violated rows");
+}
+
 /// Contradictory rows (the same row bounded above by c and below by c + 1) or an equality
 /// outside the box its variables allow: both solvers must say infeasible.
 #[test]

@@ -27,7 +27,8 @@ impl Default for ClarabelQpSettings {
 
 /// [`QpSolver`] on Clarabel (`min 1/2 x'Px + q'x  subject to  Ax + s = b, s in K`). Each
 /// equality row or fixed variable is one row of the zero cone; each finite side of an
-/// inequality row or bound one row of the nonnegative cone.
+/// inequality row or bound one row of the nonnegative cone. A penalised row gets two
+/// variables of its own, `p, q >= 0` costing the penalty each, and enters as `a'x + p - q`.
 #[derive(Clone, Debug, Default)]
 pub struct ClarabelQp {
     pub settings: ClarabelQpSettings,
@@ -73,6 +74,17 @@ impl QpSolver for ClarabelQp {
         let (n, m) = (qp.num_variables(), qp.num_rows());
         out.resize(n, m);
         let l = &qp.layout;
+        // Slack pair of each penalised row (with a finite side) after the QP's variables.
+        let mut slack = vec![usize::MAX; m];
+        let mut total = n;
+        for (i, s) in slack.iter_mut().enumerate() {
+            if qp.is_penalised(i)
+                && (finite_bound(qp.row_lower[i]) || finite_bound(qp.row_upper[i]))
+            {
+                *s = total;
+                total += 2;
+            }
+        }
         let mut eq = Vec::new();
         let mut ineq = Vec::new();
         for i in 0..m {
@@ -84,14 +96,9 @@ impl QpSolver for ClarabelQp {
                 &mut ineq,
             );
         }
-        for j in 0..n {
-            classify(
-                qp.var_lower[j],
-                qp.var_upper[j],
-                |sign| Origin::Var { index: j, sign },
-                &mut eq,
-                &mut ineq,
-            );
+        for j in 0..total {
+            let (lo, hi) = if j < n { (qp.var_lower[j], qp.var_upper[j]) } else { (0.0, f64::INFINITY) };
+            classify(lo, hi, |sign| Origin::Var { index: j, sign }, &mut eq, &mut ineq);
         }
         let (mut ai, mut aj, mut av, mut b) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
         for (k, (origin, rhs)) in eq.iter().chain(ineq.iter()).enumerate() {
@@ -106,6 +113,11 @@ impl QpSolver for ClarabelQp {
                             av.push(sign * v);
                         }
                     }
+                    if slack[index] != usize::MAX {
+                        ai.extend([k, k]);
+                        aj.extend([slack[index], slack[index] + 1]);
+                        av.extend([sign, -sign]);
+                    }
                 }
                 Origin::Var { index, sign } => {
                     ai.push(k);
@@ -114,7 +126,7 @@ impl QpSolver for ClarabelQp {
                 }
             }
         }
-        let a = CscMatrix::new_from_triplets(b.len(), n, ai, aj, av);
+        let a = CscMatrix::new_from_triplets(b.len(), total, ai, aj, av);
         let (mut pi, mut pj, mut pv) = (Vec::new(), Vec::new(), Vec::new());
         for k in 0..l.stages() {
             let v0 = l.vars(k).start;
@@ -131,7 +143,15 @@ impl QpSolver for ClarabelQp {
                 }
             }
         }
-        let p = CscMatrix::new_from_triplets(n, n, pi, pj, pv);
+        let p = CscMatrix::new_from_triplets(total, total, pi, pj, pv);
+        let mut q = qp.gradient.clone();
+        q.resize(total, 0.0);
+        for (i, &s) in slack.iter().enumerate() {
+            if s != usize::MAX {
+                q[s] = qp.row_penalty[i];
+                q[s + 1] = qp.row_penalty[i];
+            }
+        }
         let mut cones = Vec::new();
         if !eq.is_empty() {
             cones.push(SupportedConeT::ZeroConeT(eq.len()));
@@ -148,7 +168,7 @@ impl QpSolver for ClarabelQp {
             tol_gap_rel: tol,
             ..DefaultSettings::default()
         };
-        let mut solver = DefaultSolver::new(&p, &qp.gradient, &a, &b, &cones, settings)
+        let mut solver = DefaultSolver::new(&p, &q, &a, &b, &cones, settings)
             .map_err(|e| QpError(e.to_string()))?;
         solver.solve();
         let sol = &solver.solution;
@@ -175,13 +195,16 @@ impl QpSolver for ClarabelQp {
             out.step.fill(0.0);
             return Ok(());
         }
-        out.step.copy_from_slice(&sol.x);
+        out.step.copy_from_slice(&sol.x[..n]);
         // Clarabel's stationarity is P x + q + A'z = 0 and our rows enter A with `sign`, so
         // each conic dual contributes `sign * z` to our multiplier.
         for (k, (origin, _)) in eq.iter().chain(ineq.iter()).enumerate() {
             match *origin {
                 Origin::Row { index, sign } => out.row_multipliers[index] += sign * sol.z[k],
-                Origin::Var { index, sign } => out.bound_multipliers[index] += sign * sol.z[k],
+                Origin::Var { index, sign } if index < n => {
+                    out.bound_multipliers[index] += sign * sol.z[k]
+                }
+                Origin::Var { .. } => {}
             }
         }
         Ok(())

@@ -83,6 +83,12 @@ impl Default for StageIpmSettings {
     }
 }
 
+/// Relative optimality error below which the corrector's direction is refined.
+const REFINE_BELOW: f64 = 1e-4;
+
+/// Iterations after which infeasibility certificates are accepted at the reduced tolerance.
+const EARLY_CERTIFICATE_ITERATIONS: u32 = 5;
+
 /// Iterations without a better iterate after which the method stops.
 const STALL_ITERATIONS: u32 = 20;
 
@@ -108,6 +114,28 @@ fn kind(lo: f64, hi: f64) -> u8 {
     }
 }
 
+/// [`kind`] of row `i`, with [`PENALISED`] set for a penalised row that has a finite side.
+fn row_kind(qp: &StageQp, i: usize) -> u8 {
+    let k = kind(qp.row_lower[i], qp.row_upper[i]);
+    if k != 0 && qp.is_penalised(i) {
+        k | PENALISED
+    } else {
+        k
+    }
+}
+
+const PENALISED: u8 = 8;
+
+/// A column the method adds for a penalised row: the row `a'x + p - n (- r)` with `p, n >= 0`
+/// costing the penalty each, and for an inequality row its value `r` within the row's bounds
+/// (the row itself then an equality with right-hand side 0).
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Slack {
+    Up,
+    Down,
+    Value,
+}
+
 /// Everything sized by the QP's structure.
 struct Workspace {
     layout: Arc<StageLayout>,
@@ -119,10 +147,27 @@ struct Workspace {
     eq_rows: Vec<usize>,
     /// Stage `k`'s multipliers are `eq_start[k]..eq_start[k + 1]`.
     eq_start: Vec<usize>,
+    /// Per variable (the QP's, then the slack columns): fixed by its bounds.
     fixed: Vec<bool>,
-    /// Inequality sides grouped by stage: stage `k`'s are `side_start[k]..side_start[k + 1]`.
+    /// Inequality sides grouped by stage: stage `k`'s are `side_start[k]..side_start[k + 1]`;
+    /// the sides of slack columns follow all stages'.
     sides: Vec<Side>,
     side_start: Vec<usize>,
+    /// Number of the QP's variables; slack column `t` is variable `n + t`.
+    n: usize,
+    /// Per slack column: its QP row, its equality multiplier, its coefficient, its kind.
+    slack_row: Vec<usize>,
+    slack_eq: Vec<usize>,
+    slack_coef: Vec<f64>,
+    slack_kind: Vec<Slack>,
+    /// Bounds of the slack columns for the QP being solved.
+    slack_lower: Vec<f64>,
+    slack_upper: Vec<f64>,
+    /// Per slack column the diagonal of the Newton system (barrier weights plus
+    /// regularisation), and per equality multiplier what the eliminated slacks add to its
+    /// diagonal (with the sign reversed).
+    slack_diag: Vec<f64>,
+    eq_extra: Vec<f64>,
     // Data of the reduced QP.
     q: Vec<f64>,
     b: Vec<f64>,
@@ -151,7 +196,6 @@ struct Workspace {
     rhs: Vec<f64>,
     sol: Vec<f64>,
     tmp_n: Vec<f64>,
-    tmp_e: Vec<f64>,
     // Right-hand side and correction of the refinement against the full system.
     rho_x: Vec<f64>,
     rho_y: Vec<f64>,
@@ -210,7 +254,12 @@ impl QpSolver for StageIpm {
         }
         let (eq, scaled_out) = &mut **self.scaling.as_mut().expect("scaling set up above");
         eq.apply(qp);
-        eq.copy_scales(&mut ws.col_scale, &mut ws.row_scale, &mut ws.cost_scale);
+        let n = qp.num_variables();
+        eq.copy_scales(&mut ws.col_scale[..n], &mut ws.row_scale, &mut ws.cost_scale);
+        // A slack column is in its row's (scaled) units.
+        for (c, &i) in ws.slack_row.iter().enumerate() {
+            ws.col_scale[n + c] = 1.0 / ws.row_scale[i];
+        }
         ws.run(&eq.scaled, &self.settings, scaled_out);
         eq.unscale(scaled_out, out);
         Ok(())
@@ -220,7 +269,8 @@ impl QpSolver for StageIpm {
         let (Some(ws), Some(scaling)) = (self.ws.as_mut(), self.scaling.as_ref()) else {
             return false;
         };
-        if !self.settings.equilibrate || !ws.last_solved {
+        // Shifted bounds of a penalised row would move its slacks' bounds: not done here.
+        if !self.settings.equilibrate || !ws.last_solved || !ws.slack_row.is_empty() {
             return false;
         }
         ws.shifted_step(&scaling.0.scaled, row_shift, gradient_shift, &self.settings, out);
@@ -240,7 +290,12 @@ fn dot(a: &[f64], b: &[f64]) -> f64 {
 
 /// Largest `alpha <= 1` keeping `v + alpha dv >= 0`.
 fn max_step(v: &[f64], dv: &[f64]) -> f64 {
-    let mut a: f64 = 1.0;
+    max_step_up_to(v, dv, 1.0)
+}
+
+/// Largest `alpha <= limit` keeping `v + alpha dv >= 0`.
+fn max_step_up_to(v: &[f64], dv: &[f64], limit: f64) -> f64 {
+    let mut a: f64 = limit;
     for (vi, di) in v.iter().zip(dv) {
         if *di < 0.0 {
             a = a.min(-vi / di);
@@ -254,7 +309,7 @@ impl Workspace {
         let layout = qp.layout.clone();
         let (n, m) = (layout.num_variables(), layout.num_rows());
         let kinds: Vec<u8> = (0..m)
-            .map(|i| kind(qp.row_lower[i], qp.row_upper[i]))
+            .map(|i| row_kind(qp, i))
             .chain((0..n).map(|j| kind(qp.var_lower[j], qp.var_upper[j])))
             .collect();
         let s = layout.stages();
@@ -263,7 +318,22 @@ impl Workspace {
         let mut sides = Vec::new();
         let mut side_start = Vec::with_capacity(s + 1);
         let (mut nn, mut ee, mut cc) = (Vec::new(), Vec::new(), Vec::new());
-        let fixed: Vec<bool> = (0..n).map(|j| kinds[m + j] == 1).collect();
+        let mut fixed: Vec<bool> = (0..n).map(|j| kinds[m + j] == 1).collect();
+        let (mut slack_row, mut slack_eq, mut slack_coef, mut slack_kind) =
+            (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+        let mut add_slacks = |i: usize, t: usize, equality: bool| {
+            let mut push = |kind: Slack, coef: f64| {
+                slack_row.push(i);
+                slack_eq.push(t);
+                slack_coef.push(coef);
+                slack_kind.push(kind);
+            };
+            push(Slack::Up, 1.0);
+            push(Slack::Down, -1.0);
+            if !equality {
+                push(Slack::Value, -1.0);
+            }
+        };
         for k in 0..s {
             eq_start.push(eq_rows.len());
             side_start.push(sides.len());
@@ -271,6 +341,11 @@ impl Workspace {
             for i in layout.local_rows(k) {
                 match kinds[i] {
                     1 => {
+                        eq_rows.push(i);
+                        e += 1;
+                    }
+                    t if t & PENALISED != 0 => {
+                        add_slacks(i, eq_rows.len(), t & 1 != 0);
                         eq_rows.push(i);
                         e += 1;
                     }
@@ -284,7 +359,12 @@ impl Workspace {
                     }
                 }
             }
-            eq_rows.extend(layout.coupling_rows(k));
+            for i in layout.coupling_rows(k) {
+                if kinds[i] & PENALISED != 0 {
+                    add_slacks(i, eq_rows.len(), true);
+                }
+                eq_rows.push(i);
+            }
             for j in layout.vars(k) {
                 let t = kinds[m + j];
                 if t != 1 {
@@ -302,9 +382,23 @@ impl Workspace {
         }
         eq_start.push(eq_rows.len());
         side_start.push(sides.len());
+        let ns = slack_row.len();
+        for (t, &kind) in slack_kind.iter().enumerate() {
+            let i = slack_row[t];
+            let (j, k) = (n + t, kinds[i]);
+            // p and n have their lower bound 0 only; r has the row's finite sides.
+            if kind == Slack::Value && k & 4 != 0 {
+                sides.push(Side::Var(j, 1.0));
+            }
+            if kind != Slack::Value || k & 2 != 0 {
+                sides.push(Side::Var(j, -1.0));
+            }
+        }
+        fixed.resize(n + ns, false);
         let kkt = BlockKkt::new(&nn, &ee, &cc);
         let (me, ms, len) = (eq_rows.len(), sides.len(), kkt.len());
         let zeros = |k: usize| vec![0.0; k];
+        let n_all = n + ns;
         Workspace {
             layout,
             kinds,
@@ -314,19 +408,28 @@ impl Workspace {
             fixed,
             sides,
             side_start,
-            q: zeros(n),
+            n,
+            slack_row,
+            slack_eq,
+            slack_coef,
+            slack_kind,
+            slack_lower: zeros(ns),
+            slack_upper: zeros(ns),
+            slack_diag: zeros(ns),
+            eq_extra: zeros(me),
+            q: zeros(n_all),
             b: zeros(me),
             h: zeros(ms),
-            fixed_values: zeros(n),
-            x: zeros(n),
+            fixed_values: zeros(n_all),
+            x: zeros(n_all),
             y: zeros(me),
             z: zeros(ms),
             s: zeros(ms),
-            rx: zeros(n),
+            rx: zeros(n_all),
             ry: zeros(me),
             rz: zeros(ms),
-            px: zeros(n),
-            dx: zeros(n),
+            px: zeros(n_all),
+            dx: zeros(n_all),
             dy: zeros(me),
             dz: zeros(ms),
             ds: zeros(ms),
@@ -335,19 +438,18 @@ impl Workspace {
             gx: zeros(ms),
             rhs: zeros(len),
             sol: zeros(len),
-            tmp_n: zeros(n),
-            tmp_e: zeros(me),
-            rho_x: zeros(n),
+            tmp_n: zeros(n_all),
+            rho_x: zeros(n_all),
             rho_y: zeros(me),
             rho_z: zeros(ms),
-            cx: zeros(n),
+            cx: zeros(n_all),
             cy: zeros(me),
             cz: zeros(ms),
-            col_scale: vec![1.0; n],
+            col_scale: vec![1.0; n_all],
             row_scale: vec![1.0; m],
             cost_scale: 1.0,
             last_solved: false,
-            best_x: zeros(n),
+            best_x: zeros(n_all),
             best_y: zeros(me),
             best_z: zeros(ms),
             best_s: zeros(ms),
@@ -361,7 +463,7 @@ impl Workspace {
             return false;
         }
         let m = l.num_rows();
-        (0..m).all(|i| self.kinds[i] == kind(qp.row_lower[i], qp.row_upper[i]))
+        (0..m).all(|i| self.kinds[i] == row_kind(qp, i))
             && (0..l.num_variables())
                 .all(|j| self.kinds[m + j] == kind(qp.var_lower[j], qp.var_upper[j]))
     }
@@ -403,11 +505,14 @@ impl Workspace {
         }
     }
 
-    /// `out = A x` over the equality multipliers.
+    /// `out = A x` over the equality multipliers (with the slack columns).
     fn eq_times(&self, qp: &StageQp, x: &[f64], out: &mut [f64]) {
         for (t, &i) in self.eq_rows.iter().enumerate() {
             let (row, first) = qp.row(i);
             out[t] = dot(row, &x[first..first + row.len()]);
+        }
+        for (c, (&t, &a)) in self.slack_eq.iter().zip(&self.slack_coef).enumerate() {
+            out[t] += a * x[self.n + c];
         }
     }
 
@@ -423,6 +528,16 @@ impl Workspace {
                 *o += yt * a;
             }
         }
+        for (c, (&t, &a)) in self.slack_eq.iter().zip(&self.slack_coef).enumerate() {
+            out[self.n + c] += a * y[t];
+        }
+    }
+
+    /// `out = P x` (zero on the slack columns).
+    fn mul_hessian(&self, qp: &StageQp, x: &[f64], out: &mut [f64]) {
+        let n = self.n;
+        qp.mul_hessian(&x[..n], &mut out[..n]);
+        out[n..].fill(0.0);
     }
 
     /// Reduced data: fixed variables' values moved into `q`, `b` and `h`.
@@ -433,9 +548,19 @@ impl Workspace {
         }
         let v = std::mem::take(&mut self.fixed_values);
         let any_fixed = self.fixed.iter().any(|&f| f);
-        qp.mul_hessian(&v, &mut self.q);
+        qp.mul_hessian(&v[..n], &mut self.q[..n]);
         for j in 0..n {
             self.q[j] = if self.fixed[j] { 0.0 } else { self.q[j] + qp.gradient[j] };
+        }
+        for (c, &kind) in self.slack_kind.iter().enumerate() {
+            let i = self.slack_row[c];
+            let (lo, hi, cost) = match kind {
+                Slack::Value => (qp.row_lower[i], qp.row_upper[i], 0.0),
+                Slack::Up | Slack::Down => (0.0, f64::INFINITY, qp.row_penalty[i]),
+            };
+            self.slack_lower[c] = lo;
+            self.slack_upper[c] = hi;
+            self.q[n + c] = cost;
         }
         for (t, &i) in self.eq_rows.iter().enumerate() {
             let shift = if any_fixed {
@@ -444,13 +569,21 @@ impl Workspace {
             } else {
                 0.0
             };
-            self.b[t] = qp.row_lower[i] - shift;
+            // A penalised inequality row is `a'x + p - n - r = 0`.
+            let rhs = if self.kinds[i] & PENALISED != 0 && self.kinds[i] & 1 == 0 {
+                0.0
+            } else {
+                qp.row_lower[i]
+            };
+            self.b[t] = rhs - shift;
         }
         for (t, side) in self.sides.iter().enumerate() {
             let shift = if any_fixed { Self::side_value(qp, *side, &v) } else { 0.0 };
             let bound = match *side {
                 Side::Row(i, sign) if sign > 0.0 => qp.row_upper[i],
                 Side::Row(i, _) => -qp.row_lower[i],
+                Side::Var(j, sign) if j >= n && sign > 0.0 => self.slack_upper[j - n],
+                Side::Var(j, _) if j >= n => -self.slack_lower[j - n],
                 Side::Var(j, sign) if sign > 0.0 => qp.var_upper[j],
                 Side::Var(j, _) => -qp.var_lower[j],
             };
@@ -465,6 +598,19 @@ impl Workspace {
     fn factorise(&mut self, qp: &StageQp, settings: &StageIpmSettings, dual: f64) {
         let l = self.layout.clone();
         let s = l.stages();
+        // Slack columns are eliminated before the factorisation: each appears in one
+        // equality row only, with a diagonal block of its own.
+        self.slack_diag.fill(settings.regularisation);
+        for t in self.side_start[s]..self.sides.len() {
+            if let Side::Var(j, _) = self.sides[t] {
+                self.slack_diag[j - self.n] += self.sigma[t];
+            }
+        }
+        self.eq_extra.fill(0.0);
+        for c in 0..self.slack_diag.len() {
+            let a = self.slack_coef[c];
+            self.eq_extra[self.slack_eq[c]] += a * a / self.slack_diag[c];
+        }
         for k in 0..s {
             let vars = l.vars(k);
             let (nk, ek, ck) = self.kkt.sizes(k);
@@ -506,7 +652,7 @@ impl Workspace {
                 }
             }
             for r in nk..b {
-                blk[r + r * b] = dual;
+                blk[r + r * b] = dual - self.eq_extra[self.eq_start[k] + r - nk];
             }
             // Fixed variables: identity rows, so their unknowns stay zero.
             for j in vars.clone() {
@@ -551,6 +697,10 @@ impl Workspace {
         let (gx, mut dx) = (std::mem::take(&mut self.gx), std::mem::take(&mut self.dx));
         self.add_sides_transpose(qp, &gx, &mut dx);
         self.gx = gx;
+        let n = self.n;
+        for c in 0..self.slack_diag.len() {
+            self.dy[self.slack_eq[c]] -= self.slack_coef[c] * dx[n + c] / self.slack_diag[c];
+        }
         let l = &self.layout;
         for k in 0..l.stages() {
             let r = self.kkt.block_range(k);
@@ -578,6 +728,10 @@ impl Workspace {
             self.dy[self.eq_start[k]..self.eq_start[k + 1]].copy_from_slice(&blk[nk..]);
         }
         self.sol = sol;
+        for c in 0..self.slack_diag.len() {
+            let a = self.slack_coef[c];
+            dx[n + c] = (dx[n + c] - a * self.dy[self.slack_eq[c]]) / self.slack_diag[c];
+        }
         // dz = sigma o (G dx - rz).
         let mut gx = std::mem::take(&mut self.gx);
         self.sides_times(qp, &dx, &mut gx);
@@ -603,7 +757,9 @@ impl Workspace {
         let mut last = f64::INFINITY;
         for _ in 0..settings.refinement_steps {
             // Residual of the full system at (dx, dy, dz), into the correction buffers.
-            qp.mul_hessian(&self.dx, &mut self.cx);
+            let mut cx = std::mem::take(&mut self.cx);
+            self.mul_hessian(qp, &self.dx, &mut cx);
+            self.cx = cx;
             let (dy, dz) = (std::mem::take(&mut self.dy), std::mem::take(&mut self.dz));
             let mut cx = std::mem::take(&mut self.cx);
             self.add_eq_transpose(qp, &dy, &mut cx);
@@ -652,7 +808,9 @@ impl Workspace {
 
     /// Residuals at the iterate; returns `x'Px`.
     fn residuals(&mut self, qp: &StageQp) -> f64 {
-        qp.mul_hessian(&self.x, &mut self.px);
+        let mut px = std::mem::take(&mut self.px);
+        self.mul_hessian(qp, &self.x, &mut px);
+        self.px = px;
         for j in 0..self.x.len() {
             if self.fixed[j] {
                 self.px[j] = 0.0;
@@ -729,7 +887,9 @@ impl Workspace {
     }
 
     /// An infeasibility or unboundedness certificate at the iterate, to tolerance `eps`.
-    fn certificate(&mut self, qp: &StageQp, eps: f64) -> Option<QpStatus> {
+    fn certificate(&self, eps: f64) -> Option<QpStatus> {
+        // Read off the residuals at the iterate, which hold every product needed:
+        // A'y + G'z = r_x - Px - q, Ax = r_y + b, Gx = r_z - s + h.
         let norm_b = inf_norm(&self.b).max(inf_norm(&self.h));
         let norm_q = inf_norm(&self.q);
         let norm_x = inf_norm(&self.x);
@@ -737,37 +897,28 @@ impl Workspace {
         let bw = dot(&self.b, &self.y) + dot(&self.h, &self.z);
         // Primal infeasibility: the multipliers' direction w / |w| nearly satisfies
         // A'w = 0, z >= 0 and b'w < 0.
-        if norm_w > 1.0 && bw < 0.0 {
-            let mut aw = std::mem::take(&mut self.tmp_n);
-            aw.fill(0.0);
-            let (y, z) = (std::mem::take(&mut self.y), std::mem::take(&mut self.z));
-            self.add_eq_transpose(qp, &y, &mut aw);
-            self.add_sides_transpose(qp, &z, &mut aw);
-            self.y = y;
-            self.z = z;
-            let worst = aw
-                .iter()
-                .zip(&self.fixed)
-                .filter(|(_, &f)| !f)
-                .fold(0.0_f64, |a, (v, _)| a.max(v.abs()));
-            self.tmp_n = aw;
-            if worst <= eps * norm_w && bw <= -eps.sqrt() * norm_w * (1.0 + norm_b) {
+        if norm_w > 1.0 && bw < 0.0 && bw <= -eps.sqrt() * norm_w * (1.0 + norm_b) {
+            let mut worst: f64 = 0.0;
+            for j in 0..self.x.len() {
+                if !self.fixed[j] {
+                    worst = worst.max((self.rx[j] - self.px[j] - self.q[j]).abs());
+                }
+            }
+            if worst <= eps * norm_w {
                 return Some(QpStatus::Infeasible);
             }
         }
         // Unboundedness: x / |x| nearly satisfies Px = 0, Ax = 0, Gx <= 0 and q'x < 0.
         let qx = dot(&self.q, &self.x);
-        if norm_x > 1.0 && qx < 0.0 {
+        if norm_x > 1.0 && qx < 0.0 && qx <= -eps.sqrt() * norm_x * (1.0 + norm_q) {
             let mut worst = inf_norm(&self.px);
-            let mut tmp = std::mem::take(&mut self.tmp_e);
-            self.eq_times(qp, &self.x, &mut tmp);
-            worst = worst.max(inf_norm(&tmp));
-            self.tmp_e = tmp;
-            let mut gx = std::mem::take(&mut self.gx);
-            self.sides_times(qp, &self.x, &mut gx);
-            worst = gx.iter().fold(worst, |a, &v| a.max(v));
-            self.gx = gx;
-            if worst <= eps * norm_x && qx <= -eps.sqrt() * norm_x * (1.0 + norm_q) {
+            for t in 0..self.ry.len() {
+                worst = worst.max((self.ry[t] + self.b[t]).abs());
+            }
+            for t in 0..self.rz.len() {
+                worst = worst.max(self.rz[t] - self.s[t] + self.h[t]);
+            }
+            if worst <= eps * norm_x {
                 return Some(QpStatus::Unbounded);
             }
         }
@@ -786,6 +937,14 @@ impl Workspace {
         self.dy.copy_from_slice(&self.b);
         self.dz.copy_from_slice(&self.h);
         self.newton_solve(qp);
+        if std::env::var_os("COSTATE_X0").is_some() {
+            self.dx.fill(0.0);
+            let mut gx = std::mem::take(&mut self.gx);
+            self.sides_times(qp, &self.dx, &mut gx);
+            for t in 0..ms { self.dz[t] = gx[t] - self.h[t]; }
+            self.gx = gx;
+            if std::env::var_os("COSTATE_Y0").is_some() { self.dy.fill(0.0); }
+        }
         self.x.copy_from_slice(&self.dx);
         self.y.copy_from_slice(&self.dy);
         // dz = G x - h: the primal slack is its negative, the dual start the vector itself.
@@ -808,13 +967,15 @@ impl Workspace {
     }
 
     /// The direction for centring target `target` (`sigma mu`), with Mehrotra's second-order
-    /// term when `corrector`; fills `dx, dy, dz, ds`.
+    /// term when `corrector`, refined against the full system when `refine`; fills
+    /// `dx, dy, dz, ds`.
     fn direction(
         &mut self,
         qp: &StageQp,
         settings: &StageIpmSettings,
         target: f64,
         corrector: bool,
+        refine: bool,
     ) {
         // The predictor only sets the centring weight and the corrector term: it needs no
         // refinement; the step itself (the corrector) gets it.
@@ -833,7 +994,7 @@ impl Workspace {
             self.dz[t] = -self.rz[t] + ds_t / self.z[t];
             self.ds[t] = ds_t;
         }
-        if corrector {
+        if refine {
             self.refined_newton_solve(qp, settings);
         } else {
             self.newton_solve(qp);
@@ -847,6 +1008,15 @@ impl Workspace {
     /// Largest step in (0, 1] along the direction keeping `s` and `z` nonnegative.
     fn step_to_boundary(&self) -> f64 {
         max_step(&self.s, &self.ds).min(max_step(&self.z, &self.dz))
+    }
+
+    /// The step taken: `fraction` of the way to the boundary, but the full step when the
+    /// boundary lies beyond `1 / fraction` (else the last iterations gain only a factor
+    /// `1 / (1 - fraction)` each where Newton's method would converge in one).
+    fn damped_step(&self, fraction: f64) -> f64 {
+        let limit = 1.0 / fraction;
+        let reach = max_step_up_to(&self.s, &self.ds, limit).min(max_step_up_to(&self.z, &self.dz, limit));
+        (fraction * reach).min(1.0)
     }
 
     /// Average complementarity product after a step of `alpha`.
@@ -942,7 +1112,15 @@ impl Workspace {
             if error <= settings.tolerance {
                 break QpStatus::Solved;
             }
-            if let Some(st) = self.certificate(qp, settings.infeasibility_tolerance) {
+            // After a few iterations a certificate to the reduced tolerance is accepted too:
+            // on an infeasible QP the multipliers grow by a factor of a few per iteration and
+            // the strict test would wait for them to reach 1e8 times the data.
+            let eps = if iterations >= EARLY_CERTIFICATE_ITERATIONS {
+                settings.reduced_tolerance.max(settings.infeasibility_tolerance)
+            } else {
+                settings.infeasibility_tolerance
+            };
+            if let Some(st) = self.certificate(eps) {
                 break st;
             }
             if std::env::var_os("COSTATE_IPM_TRACE").is_some() {
@@ -964,7 +1142,7 @@ impl Workspace {
                 // Certificates at the iterate reached (they lie at its end), then optimality
                 // at the best iterate seen, both to the reduced tolerance.
                 let tol = settings.reduced_tolerance;
-                if let Some(st) = self.certificate(qp, tol) {
+                if let Some(st) = self.certificate(tol) {
                     break st;
                 }
                 if !(error <= best) {
@@ -987,7 +1165,7 @@ impl Workspace {
             self.factorise(qp, settings, 0.0);
             // Predictor (affine scaling), then Mehrotra's corrector with the centring weight
             // (mu_aff / mu)^3.
-            self.direction(qp, settings, 0.0, false);
+            self.direction(qp, settings, 0.0, false, false);
             let alpha_aff = self.step_to_boundary();
             for t in 0..ms {
                 self.cross[t] = self.ds[t] * self.dz[t];
@@ -997,9 +1175,13 @@ impl Workspace {
             } else {
                 0.0
             };
-            self.direction(qp, settings, sigma * mu, true);
-            let alpha = (settings.step_fraction * self.step_to_boundary()).min(1.0);
-            let alpha = self.keep_centred(alpha);
+            // Far from the solution the condensed solve is accurate enough (its error is
+            // relative to barrier weights that are still of one size); near it refinement
+            // recovers what condensing loses.
+            self.direction(qp, settings, sigma * mu, true, error < REFINE_BELOW || std::env::var_os("COSTATE_REFINE_ALL").is_some());
+            let alpha0 = self.damped_step(settings.step_fraction);
+            let alpha = self.keep_centred(alpha0);
+            if std::env::var_os("COSTATE_IPM_TRACE").is_some() { eprintln!("   alpha_aff {alpha_aff:.3e} sigma {sigma:.3e} alpha0 {alpha0:.3e} alpha {alpha:.3e}"); }
             slow = if alpha < 1e-8 { slow + 1 } else { 0 };
             for j in 0..self.x.len() {
                 self.x[j] += alpha * self.dx[j];
@@ -1042,7 +1224,8 @@ impl Workspace {
             let v = self.z[t];
             match *side {
                 Side::Row(i, sign) => out.row_multipliers[i] += sign * v,
-                Side::Var(j, sign) => out.bound_multipliers[j] += sign * v,
+                Side::Var(j, sign) if j < n => out.bound_multipliers[j] += sign * v,
+                Side::Var(..) => {}
             }
         }
         // Fixed variables take the multiplier that closes stationarity.
@@ -1125,7 +1308,7 @@ mod tests {
         }
         ws.factorise(&qp, &settings, 0.0);
         let target = 0.05;
-        ws.direction(&qp, &settings, target, false);
+        ws.direction(&qp, &settings, target, false, true);
 
         // Dense P, A (rows of the equality multipliers) and G (sides).
         let p = DMatrix::from_fn(n, n, |r, c| {

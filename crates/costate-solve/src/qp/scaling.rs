@@ -145,6 +145,9 @@ impl Equilibration {
             let scale = |v: f64| if finite_bound(v) { v * er } else { v };
             s.row_lower[r] = scale(qp.row_lower[r]);
             s.row_upper[r] = scale(qp.row_upper[r]);
+            // The violation is measured in scaled row units, the objective in scaled cost.
+            let w = qp.row_penalty[r];
+            s.row_penalty[r] = if finite_bound(w) { self.c * w / er } else { w };
         }
     }
 

@@ -14,6 +14,11 @@
 //!            dl <= d <= du
 //! ```
 //!
+//! A row may instead be *penalised* (`row_penalty[i]` finite): it is not enforced, and
+//! `row_penalty[i]` times its violation `dist(a_i' d, [rl_i, ru_i])` joins the objective (the
+//! l1 relaxation of an elastic QP). Its multiplier then lies in `[-row_penalty[i],
+//! row_penalty[i]]`. Hard rows have an infinite penalty (the default).
+//!
 //! with `d_k` the variables of stage `k`. Variables are numbered stage after stage, and so are
 //! rows: stage `k`'s local rows, then its coupling rows (which tie it to stage `k + 1`; the
 //! last stage has none). Coupling rows are equalities.
@@ -232,6 +237,8 @@ pub struct StageQp {
     pub row_upper: Vec<f64>,
     pub var_lower: Vec<f64>,
     pub var_upper: Vec<f64>,
+    /// Per row: `+inf` for a hard row, else the weight of its violation in the objective.
+    pub row_penalty: Vec<f64>,
 }
 
 impl StageQp {
@@ -246,6 +253,7 @@ impl StageQp {
             row_upper: vec![f64::INFINITY; m],
             var_lower: vec![f64::NEG_INFINITY; n],
             var_upper: vec![f64::INFINITY; n],
+            row_penalty: vec![f64::INFINITY; m],
             layout,
         }
     }
@@ -256,6 +264,11 @@ impl StageQp {
 
     pub fn num_rows(&self) -> usize {
         self.row_lower.len()
+    }
+
+    /// Whether row `i` is penalised rather than enforced.
+    pub fn is_penalised(&self, i: usize) -> bool {
+        finite_bound(self.row_penalty[i])
     }
 
     /// Dense row `i` and the first variable it covers.
@@ -301,7 +314,7 @@ impl StageQp {
         if self.gradient.len() != n || self.var_lower.len() != n || self.var_upper.len() != n {
             return bad("variable data differ in length from the layout".into());
         }
-        if self.row_lower.len() != m || self.row_upper.len() != m {
+        if self.row_lower.len() != m || self.row_upper.len() != m || self.row_penalty.len() != m {
             return bad("row bounds differ in length from the layout".into());
         }
         if self.hessian.len() != l.hessian_len() || self.jacobian.len() != l.jacobian_len() {
@@ -339,6 +352,9 @@ impl StageQp {
             {
                 return bad(format!("coupling row {i} is not an equality"));
             }
+        }
+        if let Some(i) = self.row_penalty.iter().position(|&w| !(w > 0.0)) {
+            return bad(format!("row {i}: penalty not positive"));
         }
         for j in 0..n {
             if !ordered(self.var_lower[j], self.var_upper[j]) {

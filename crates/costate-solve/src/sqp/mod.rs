@@ -698,16 +698,9 @@ impl Sqp {
             return Ok(StepOutcome::NoStep(QpStatus::Unbounded));
         }
         let violation = l1_violation(&wk.setup, &wk.point.c);
-        if violation > 0.0 {
-            if let Some(conflict) = self.violation_stationary(row)? {
-                return Ok(StepOutcome::Infeasible(conflict));
-            }
-        }
         self.elastic_model()?;
         let wk = self.work.as_mut().ok_or_else(uninit)?;
         let weight = wk.penalty;
-        // The merit function must weigh the violation like the elastic QP did.
-        wk.penalty = weight;
         let t = Instant::now();
         let slacks = wk
             .model
@@ -717,24 +710,34 @@ impl Sqp {
         row.qp_solves += 1;
         row.qp_iterations += wk.model.sol.iterations;
         row.qp_status = Some(wk.model.sol.status);
-        if !wk.model.sol.status.has_solution() {
-            return Ok(StepOutcome::NoStep(wk.model.sol.status));
+        let usable = wk.model.sol.status.has_solution();
+        if usable {
+            let sol = &wk.model.sol;
+            wk.step.copy_from_slice(&sol.step);
+            wk.step_lambda.copy_from_slice(&sol.row_multipliers);
+            wk.step_nu.copy_from_slice(&sol.bound_multipliers);
         }
-        let sol = &wk.model.sol;
-        wk.step.copy_from_slice(&sol.step);
-        wk.step_lambda.copy_from_slice(&sol.row_multipliers);
-        wk.step_nu.copy_from_slice(&sol.bound_multipliers);
         // Steering (R. H. Byrd, J. Nocedal, R. A. Waltz, "Steering exact penalty methods for
         // nonlinear programming", Optim. Methods Softw. 23, 2008): the elastic step must win a
-        // tenth of the reduction of the linearised violation that is possible at all (the
-        // feasibility QP's); otherwise the violation weighs more next time.
-        let possible = (violation - wk.least_violation).max(0.0);
-        if std::env::var_os("COSTATE_LS_TRACE").is_some() {
-            eprintln!("  elastic: violation {violation:.4e} slacks {slacks:.4e} least {:.4e} weight {weight:.3e} |lam| {:.3e}", wk.least_violation, inf_norm(&wk.step_lambda));
+        // tenth of the reduction of the linearised violation that is possible at all. Only
+        // when it wins less than a tenth of the violation itself is that possible reduction
+        // asked of the feasibility QP, which also decides local infeasibility.
+        if violation > 0.0 && (!usable || violation - slacks < 0.1 * violation) {
+            if let Some(conflict) = self.violation_stationary(row)? {
+                return Ok(StepOutcome::Infeasible(conflict));
+            }
+            let wk = self.work.as_mut().ok_or_else(uninit)?;
+            let possible = (violation - wk.least_violation).max(0.0);
+            if (!usable || violation - slacks < 0.1 * possible) && wk.penalty < st.penalty_max {
+                wk.penalty = (10.0 * wk.penalty).min(st.penalty_max);
+            }
         }
-        if violation - slacks < 0.1 * possible && wk.penalty < st.penalty_max {
-            wk.penalty = (10.0 * wk.penalty).min(st.penalty_max);
+        let wk = self.work.as_mut().ok_or_else(uninit)?;
+        if !usable {
+            return Ok(StepOutcome::NoStep(row.qp_status.unwrap_or(QpStatus::NumericalFailure)));
         }
+        // The merit function weighs the violation like the elastic QP did.
+        wk.penalty = wk.penalty.max(weight);
         Ok(StepOutcome::Elastic)
     }
 
