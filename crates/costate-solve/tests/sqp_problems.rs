@@ -188,7 +188,7 @@ fn nonconvex_equality_with_indefinite_hessian() {
         assert!((r.constraint_multipliers[0] - 1.0).abs() < 1e-6);
         if mode == HessianMode::Exact {
             let convexified =
-                r.history.iter().any(|row| row.hessian_shift > 0.0 || row.augmentation > 0.0);
+                r.history.iter().any(|row| row.hessian_shift > 0.0);
             assert!(convexified, "indefinite Hessian used as is");
         }
     }
@@ -340,7 +340,7 @@ fn infeasible_problem_names_the_violated_row() {
     infeasible_disc().check_derivatives(&[0.4, 0.9]);
     for mode in MODES {
         let r = solve(&mut infeasible_disc(), mode);
-        let SqpStatus::LocallyInfeasible { rows } = &r.status else {
+        let SqpStatus::LocallyInfeasible { rows, .. } = &r.status else {
             panic!("{mode:?}: expected local infeasibility, got {:?}", r.status);
         };
         assert_eq!(rows[0].row, 1, "{rows:?}");
@@ -650,8 +650,13 @@ impl Nlp for Chain {
         }
         Ok(())
     }
-    fn variable_blocks(&self) -> Vec<std::ops::Range<usize>> {
-        (0..self.stages).map(|k| self.x(k)..self.u(k) + 1).collect()
+    fn stages(&self) -> Option<costate_solve::qp::StageLayout> {
+        // Stage k holds (x_k, u_k) and the continuity row to x_{k+1}; the last holds x_N.
+        let mut variables = vec![2; self.stages];
+        variables.push(1);
+        let mut coupling = vec![1; self.stages];
+        coupling.push(0);
+        costate_solve::qp::StageLayout::new(&variables, &vec![0; self.stages + 1], &coupling).ok()
     }
 }
 

@@ -143,7 +143,7 @@ impl LineSearch<'_> {
         }
         // The chain convexification's gradient depends on the coupling rows' bounds.
         wk.grad_shift.fill(0.0);
-        if let Some(r) = &mut wk.riccati {
+        if let Some(r) = wk.riccati.as_mut().filter(|_| wk.chain_convexified) {
             wk.grad_shift.copy_from_slice(&wk.model.qp.gradient);
             for i in 0..s.m {
                 wk.model.qp.row_lower[i] += wk.row_shift[i];
@@ -183,7 +183,7 @@ impl LineSearch<'_> {
             *self.qp_time += t.elapsed();
             row.qp_solves += 1;
             row.qp_iterations += wk.model.sol.iterations;
-            if let Some(r) = &mut wk.riccati {
+            if let Some(r) = wk.riccati.as_mut().filter(|_| wk.chain_convexified) {
                 if wk.model.sol.status.has_solution() {
                     let sol = &mut wk.model.sol;
                     r.correct_multipliers(

@@ -27,6 +27,11 @@ use super::exact::ExactHessian;
 use super::layout::{function_tag, EndpointPlacement, Layout};
 use super::Trajectory;
 
+/// Sizes below this are taken for zero when scales are read off the starting point.
+const SCALE_FLOOR: f64 = 1e-300;
+/// The objective's scale stays within `[1 / SCALE_LIMIT, SCALE_LIMIT]`.
+const SCALE_LIMIT: f64 = 1e12;
+
 /// A compiled endpoint or running function with its workspace and scratch buffers.
 #[derive(Clone, Debug)]
 struct Eval {
@@ -114,6 +119,8 @@ pub struct MultipleShooting {
     var_hi: Vec<f64>,
     var_scale: Vec<f64>,
     con_scale: Vec<f64>,
+    /// The objective's scale (see [`MultipleShooting::scale_from_start`]).
+    obj_scale: f64,
     start: Vec<f64>,
     /// Per interval: the variables its map depends on, as (sensitivity column, variable).
     /// The time columns are handled separately through `tf`.
@@ -421,6 +428,7 @@ impl MultipleShooting {
             interval_vars,
             cache: Cache { w: vec![0.0; n], valid: false, with_sensitivities: false, outputs: Vec::new() },
             last_failure: None,
+            obj_scale: 1.0,
             exact: None,
             offer_exact: true,
             layout,
@@ -430,7 +438,37 @@ impl MultipleShooting {
         let mut w = std::mem::take(&mut s.start);
         s.complete_carried(&mut w);
         s.start = w;
+        s.scale_from_start();
         Ok(s)
+    }
+
+    /// Scales that only the starting point can tell: each running sum's by the largest value
+    /// it takes there (an integral has no declared unit of its own), and the objective's by its
+    /// largest gradient entry with respect to the scaled variables, so that a cost of 1e-9 s
+    /// or 1e6 J reaches the solver as one of order one (the gradient-based scaling of common
+    /// practice, applied both ways). A start that cannot be evaluated keeps the unit scales.
+    fn scale_from_start(&mut self) {
+        let l = self.layout.clone();
+        for j in 0..l.nq {
+            let size = (1..l.n_nodes()).fold(0.0_f64, |a, k| a.max(self.start[l.q(k, j)].abs()));
+            if size.is_finite() && size > SCALE_FLOOR {
+                for k in 1..l.n_nodes() {
+                    self.var_scale[l.q(k, j)] = size;
+                }
+                for k in 0..l.intervals {
+                    self.con_scale[l.integral_row(k, j)] = size;
+                }
+            }
+        }
+        let start = self.start.clone();
+        let mut g = vec![0.0; start.len()];
+        if self.gradient(&start, &mut g).is_ok() {
+            let largest = g.iter().zip(&self.var_scale).fold(0.0_f64, |a, (v, s)| a.max((v * s).abs()));
+            if largest.is_finite() && largest > SCALE_FLOOR {
+                self.obj_scale = largest.clamp(1.0 / SCALE_LIMIT, SCALE_LIMIT);
+            }
+        }
+        self.cache.valid = false;
     }
 
     pub fn layout(&self) -> &Layout {
@@ -1109,5 +1147,9 @@ impl Nlp for MultipleShooting {
 
     fn constraint_scales(&self, scales: &mut [f64]) {
         scales.copy_from_slice(&self.con_scale);
+    }
+
+    fn objective_scale(&self) -> f64 {
+        self.obj_scale
     }
 }

@@ -4,7 +4,6 @@
 
 #![allow(dead_code)]
 
-use std::ops::Range;
 
 use costate_solve::{EvalError, Nlp, Pattern};
 
@@ -25,7 +24,6 @@ pub struct TestNlp {
     /// Dense row-major `m x n`.
     pub jac: Vector,
     pub hess: Option<Hess>,
-    pub blocks: Vec<Range<usize>>,
     pub warm: Option<(Vec<f64>, Vec<f64>)>,
     pub var_scale: Option<Vec<f64>>,
     pub con_scale: Option<Vec<f64>>,
@@ -49,7 +47,6 @@ impl TestNlp {
             c: Box::new(|_, _| {}),
             jac: Box::new(|_, _| {}),
             hess: None,
-            blocks: vec![],
             warm: None,
             var_scale: None,
             con_scale: None,
@@ -220,9 +217,6 @@ impl Nlp for TestNlp {
             }
         }
         Ok(())
-    }
-    fn variable_blocks(&self) -> Vec<Range<usize>> {
-        self.blocks.clone()
     }
     fn variable_scales(&self, scales: &mut [f64]) {
         match &self.var_scale {
