@@ -52,7 +52,7 @@ use crate::convexify::{Augmentation, RiccatiConvexifier};
 use crate::hessian::{convexify_blocks, BfgsUpdate, BlockBfgs, Convexified, Convexifier};
 use crate::nlp::{EvalError, Nlp};
 use crate::qp::{QpSolver, QpStatus, StageIpm, StageIpmSettings, StageQp};
-use crate::settings::{SettingsError, SqpSettings};
+use crate::settings::{HessianMode, SettingsError, SqpSettings};
 
 use merit::{LineSearch, Search};
 use model::{ElasticKind, QpModel};
@@ -178,6 +178,10 @@ pub enum StepKind {
     Elastic,
     /// No step was taken (recovery: BFGS reset or a higher eigenvalue floor).
     None,
+    /// The exact-Hessian iteration reached a dead end (stalled or locally infeasible) with
+    /// the Hessian left to the solver: back to the starting point with block BFGS, in the same
+    /// solve (the iterations go on counting against the same limit).
+    Restart,
 }
 
 /// One row of the iteration log.
@@ -371,6 +375,7 @@ impl State for SqpState {
 }
 
 /// The current point and the data evaluated there, all scaled.
+#[derive(Clone)]
 struct Point {
     y: Vec<f64>,
     f: f64,
@@ -412,6 +417,9 @@ struct Work {
     /// Whether the current QP's model is the chain convexification (its gradient and
     /// multipliers carry the cost-to-go terms), else the blocks made convex one by one.
     chain_convexified: bool,
+    /// The starting point and its multipliers, kept for a restart with block BFGS while the
+    /// Hessian is the exact one and left to the solver (`None` otherwise or once used).
+    restart: Option<(Point, Vec<f64>, Vec<f64>)>,
     convexifier: Convexifier,
     /// The Hessian model before convexification (exact) or the BFGS blocks.
     hess_orig: Vec<f64>,
@@ -914,6 +922,52 @@ impl Sqp {
         Ok(SqpStatus::Stalled { reason })
     }
 
+    /// End the iteration with the dead-end `status`, or, when a restart with block BFGS is
+    /// still available (see [`StepKind::Restart`]), record the row and go on from the start.
+    fn end_or_restart(
+        &mut self,
+        mut state: SqpState,
+        mut row: IterationRow,
+        status: SqpStatus,
+    ) -> Result<(SqpState, Option<KV>), ArgminError> {
+        if matches!(status, SqpStatus::SolvedReducedAccuracy) || !self.restart()? {
+            return self.end_with(state, row, status);
+        }
+        row.step_kind = StepKind::Restart;
+        self.publish(&mut state);
+        row.objective = state.objective;
+        row.residuals = state.residuals;
+        row.penalty = state.penalty;
+        row.merit = state.merit;
+        state.history.push(row.clone());
+        state.last_row = Some(row);
+        Ok((state, None))
+    }
+
+    /// Back to the starting point with block BFGS; `false` when no restart is left.
+    fn restart(&mut self) -> Result<bool, ArgminError> {
+        let st = self.settings.clone();
+        let wk = self.work.as_mut().ok_or_else(uninit)?;
+        let Some((point, lambda, nu)) = wk.restart.take() else {
+            return Ok(false);
+        };
+        wk.point = point;
+        wk.lambda = lambda;
+        wk.nu = nu;
+        wk.bfgs = Some(BlockBfgs::new(&wk.setup.stages));
+        wk.riccati = None;
+        wk.chain_convexified = false;
+        wk.penalty = st.penalty_start;
+        wk.floor = st.convexity_floor;
+        wk.failures = 0;
+        wk.stagnant = 0;
+        wk.least_violation = 0.0;
+        let s = &wk.setup;
+        lagrangian_gradient(s, &wk.point.g, &wk.point.jac, &wk.lambda, &mut wk.lg);
+        projected_bound_multipliers(s, &wk.point.y, &wk.lg, &mut wk.nu);
+        Ok(true)
+    }
+
     /// End the iteration with `status`, publishing the point and the row.
     fn end_with(
         &mut self,
@@ -1080,6 +1134,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             bfgs,
             riccati,
             chain_convexified: false,
+            restart: None,
             convexifier,
             hess_orig,
             aug: Augmentation::new(n, m),
@@ -1103,6 +1158,10 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             setup: s,
         });
         let exact = self.work.as_ref().is_some_and(|w| w.setup.hess.is_some());
+        let auto = self.settings.hessian == HessianMode::Auto;
+        if let Some(wk) = self.work.as_mut().filter(|_| exact && auto) {
+            wk.restart = Some((wk.point.clone(), wk.lambda.clone(), wk.nu.clone()));
+        }
         if !warm && exact {
             self.least_squares_multipliers();
         }
@@ -1181,7 +1240,8 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 let wk = self.work.as_ref().ok_or_else(uninit)?;
                 let rows = violated_rows(&wk.setup, &wk.point.c, st.feasibility_tolerance);
                 row.qp_time = self.qp_time - qp_time_before;
-                return self.end_with(state, row, SqpStatus::LocallyInfeasible { rows, conflict });
+                let status = SqpStatus::LocallyInfeasible { rows, conflict };
+                return self.end_or_restart(state, row, status);
             }
             StepOutcome::NoStep(status) => (StepKind::None, Some(status)),
         };
@@ -1235,7 +1295,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             if wk.failures >= 3 {
                 let status = self.dead_end(&mut row, reason)?;
                 row.qp_time = self.qp_time - qp_time_before;
-                return self.end_with(state, row, status);
+                return self.end_or_restart(state, row, status);
             }
             let wk = self.work.as_mut().ok_or_else(uninit)?;
             match &mut wk.bfgs {
@@ -1259,6 +1319,14 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         let wk = self.work.as_ref().ok_or_else(uninit)?;
         if wk.stagnant >= STAGNATION_ITERATIONS && !meets(&state.residuals, &st, 1.0) {
             let status = self.dead_end(&mut row, StallReason::NoProgress)?;
+            if !matches!(status, SqpStatus::SolvedReducedAccuracy) && self.restart()? {
+                self.publish(&mut state);
+                if let Some(last) = state.history.last_mut() {
+                    last.step_kind = StepKind::Restart;
+                }
+                state.last_row = state.history.last().cloned();
+                return Ok((state, None));
+            }
             return Ok((self.finish(state, status), None));
         }
         Ok((state, None))
@@ -1383,6 +1451,7 @@ pub fn log_line(row: &IterationRow) -> String {
     match row.step_kind {
         StepKind::Elastic => notes.push_str("elastic "),
         StepKind::None if row.iteration > 0 => notes.push_str("no-step "),
+        StepKind::Restart => notes.push_str("restart:bfgs "),
         _ => {}
     }
     if row.qp_solves > 1 {
