@@ -286,7 +286,11 @@ impl RiccatiConvexifier {
                 for (b, &jb) in det_list.iter().enumerate() {
                     for i in 0..free {
                         x[i + b * free] = if d[i] > floor {
-                            free_list.iter().enumerate().map(|(a, &ja)| v[a + i * free] * m[ja + jb * n]).sum()
+                            free_list
+                                .iter()
+                                .enumerate()
+                                .map(|(a, &ja)| v[a + i * free] * m[ja + jb * n])
+                                .sum()
                         } else {
                             0.0
                         };
@@ -442,7 +446,9 @@ mod tests {
         let layout = Arc::new(StageLayout::new(&[2, 2, 1], &[0, 0, 0], &[1, 1, 0]).unwrap());
         let mut qp = StageQp::zeros(layout.clone());
         // Stage 0: [[1, 0], [0, -0.5]] (indefinite in u), stage 1 [[2, 1], [1, 1.5]], end 3.
-        for (r, c, v) in [(0, 0, 1.0), (1, 1, -0.5), (2, 2, 2.0), (3, 2, 1.0), (3, 3, 1.5), (4, 4, 3.0)] {
+        for (r, c, v) in
+            [(0, 0, 1.0), (1, 1, -0.5), (2, 2, 2.0), (3, 2, 1.0), (3, 3, 1.5), (4, 4, 3.0)]
+        {
             qp.add_hessian(r, c, v).unwrap();
         }
         qp.gradient = vec![0.2, -0.3, 0.1, 0.4, -0.5];
@@ -474,7 +480,9 @@ mod tests {
             }
             rhs[j] = -qp.gradient[j];
         }
-        for (row, cols) in [(0usize, [(0usize, -1.0), (1, -1.0), (2, 1.0)]), (1, [(2, -1.0), (3, -1.0), (4, 1.0)])] {
+        for (row, cols) in
+            [(0usize, [(0usize, -1.0), (1, -1.0), (2, 1.0)]), (1, [(2, -1.0), (3, -1.0), (4, 1.0)])]
+        {
             for (c, v) in cols {
                 k[(5 + row, c)] = v;
                 k[(c, 5 + row)] = v;

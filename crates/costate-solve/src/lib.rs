@@ -32,12 +32,12 @@ pub use qp::{
 };
 pub use settings::{HessianMode, SettingsError, SqpSettings};
 pub use sqp::{
-    log_header, log_line, solve_nlp, Conflict, ConflictItem, IterationRow, Residuals,
-    RowObserver, Scaling, SolveError, Sqp, SqpResult, SqpState, SqpStatus, StallReason,
-    StepKind, Timing, ViolatedRow, STAGNATION_ITERATIONS,
+    log_header, log_line, solve_nlp, Conflict, ConflictItem, IterationRow, Residuals, RowObserver,
+    Scaling, SolveError, Sqp, SqpResult, SqpState, SqpStatus, StallReason, StepKind, Timing,
+    ViolatedRow, STAGNATION_ITERATIONS,
 };
 pub use transcribe::{
-    estimate_memory, solve_ocp, Finding, MemoryEstimate, MultipleShooting, OcpSettings,
-    Conflicting, OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource,
+    estimate_memory, solve_ocp, Conflicting, Finding, MemoryEstimate, MultipleShooting,
+    OcpSettings, OcpSolution, OcpStatus, Trajectory, Violation, ViolationSource,
     DEFAULT_MEMORY_LIMIT,
 };

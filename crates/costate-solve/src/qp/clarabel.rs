@@ -97,7 +97,8 @@ impl QpSolver for ClarabelQp {
             );
         }
         for j in 0..total {
-            let (lo, hi) = if j < n { (qp.var_lower[j], qp.var_upper[j]) } else { (0.0, f64::INFINITY) };
+            let (lo, hi) =
+                if j < n { (qp.var_lower[j], qp.var_upper[j]) } else { (0.0, f64::INFINITY) };
             classify(lo, hi, |sign| Origin::Var { index: j, sign }, &mut eq, &mut ineq);
         }
         let (mut ai, mut aj, mut av, mut b) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());

@@ -783,7 +783,9 @@ impl Workspace {
             self.dy = dy;
             self.dz = dz;
             let norm = inf_norm(&self.cx).max(inf_norm(&self.cy)).max(inf_norm(&self.cz));
-            if std::env::var_os("COSTATE_REF_TRACE").is_some() { eprintln!("ref {norm:.2e} scale {scale:.2e}"); }
+            if std::env::var_os("COSTATE_REF_TRACE").is_some() {
+                eprintln!("ref {norm:.2e} scale {scale:.2e}");
+            }
             if norm <= 1e-13 * scale || norm > 0.5 * last {
                 break;
             }
@@ -941,9 +943,13 @@ impl Workspace {
             self.dx.fill(0.0);
             let mut gx = std::mem::take(&mut self.gx);
             self.sides_times(qp, &self.dx, &mut gx);
-            for t in 0..ms { self.dz[t] = gx[t] - self.h[t]; }
+            for t in 0..ms {
+                self.dz[t] = gx[t] - self.h[t];
+            }
             self.gx = gx;
-            if std::env::var_os("COSTATE_Y0").is_some() { self.dy.fill(0.0); }
+            if std::env::var_os("COSTATE_Y0").is_some() {
+                self.dy.fill(0.0);
+            }
         }
         self.x.copy_from_slice(&self.dx);
         self.y.copy_from_slice(&self.dy);
@@ -1015,7 +1021,8 @@ impl Workspace {
     /// `1 / (1 - fraction)` each where Newton's method would converge in one).
     fn damped_step(&self, fraction: f64) -> f64 {
         let limit = 1.0 / fraction;
-        let reach = max_step_up_to(&self.s, &self.ds, limit).min(max_step_up_to(&self.z, &self.dz, limit));
+        let reach =
+            max_step_up_to(&self.s, &self.ds, limit).min(max_step_up_to(&self.z, &self.dz, limit));
         (fraction * reach).min(1.0)
     }
 
@@ -1178,10 +1185,18 @@ impl Workspace {
             // Far from the solution the condensed solve is accurate enough (its error is
             // relative to barrier weights that are still of one size); near it refinement
             // recovers what condensing loses.
-            self.direction(qp, settings, sigma * mu, true, error < REFINE_BELOW || std::env::var_os("COSTATE_REFINE_ALL").is_some());
+            self.direction(
+                qp,
+                settings,
+                sigma * mu,
+                true,
+                error < REFINE_BELOW || std::env::var_os("COSTATE_REFINE_ALL").is_some(),
+            );
             let alpha0 = self.damped_step(settings.step_fraction);
             let alpha = self.keep_centred(alpha0);
-            if std::env::var_os("COSTATE_IPM_TRACE").is_some() { eprintln!("   alpha_aff {alpha_aff:.3e} sigma {sigma:.3e} alpha0 {alpha0:.3e} alpha {alpha:.3e}"); }
+            if std::env::var_os("COSTATE_IPM_TRACE").is_some() {
+                eprintln!("   alpha_aff {alpha_aff:.3e} sigma {sigma:.3e} alpha0 {alpha0:.3e} alpha {alpha:.3e}");
+            }
             slow = if alpha < 1e-8 { slow + 1 } else { 0 };
             for j in 0..self.x.len() {
                 self.x[j] += alpha * self.dx[j];

@@ -506,7 +506,13 @@ fn inf_norm(v: &[f64]) -> f64 {
 /// number of pivots replaced by `+-reg.dynamic`. Left-looking by columns; each column's
 /// update by the columns before it runs four rows at a time, so the short loops of these
 /// small blocks carry four products per pass.
-fn ldl_in_place(a: &mut [f64], b: usize, positive: usize, reg: Regularisation, w: &mut [f64]) -> usize {
+fn ldl_in_place(
+    a: &mut [f64],
+    b: usize,
+    positive: usize,
+    reg: Regularisation,
+    w: &mut [f64],
+) -> usize {
     assert!(a.len() == b * b && w.len() >= b);
     let mut perturbed = 0;
     for j in 0..b {
@@ -621,7 +627,8 @@ fn backward_unit(f: &[f64], b: usize, v: &mut [f64]) {
         let (mut s0, mut s1, mut s2, mut s3) = (0.0, 0.0, 0.0, 0.0);
         let t = &v[end..];
         let n = t.len();
-        let (a0, a1, a2, a3) = (&c0[end..end + n], &c1[end..end + n], &c2[end..end + n], &c3[end..end + n]);
+        let (a0, a1, a2, a3) =
+            (&c0[end..end + n], &c1[end..end + n], &c2[end..end + n], &c3[end..end + n]);
         for i in 0..n {
             let x = t[i];
             s0 += a0[i] * x;
@@ -775,7 +782,19 @@ mod micro {
             let blk = kkt.block_mut(k);
             for i in 0..b {
                 for j in 0..b {
-                    blk[i + j * b] = if i == j { if i < 7 { 2.0 } else { 0.0 } } else if i < 7 && j < 7 { 0.1 } else if (i < 7) != (j < 7) { 0.3 } else { 0.0 };
+                    blk[i + j * b] = if i == j {
+                        if i < 7 {
+                            2.0
+                        } else {
+                            0.0
+                        }
+                    } else if i < 7 && j < 7 {
+                        0.1
+                    } else if (i < 7) != (j < 7) {
+                        0.3
+                    } else {
+                        0.0
+                    };
                 }
             }
             if k + 1 < s {

@@ -107,7 +107,12 @@ pub trait QpSolver {
     /// bounds move by `row_shift` and the gradient by `gradient_shift`, keeping the solution's
     /// active set, into `out` (one linear solve, the second-order correction of an SQP).
     /// `false` when the solver cannot, and the caller solves the shifted QP instead.
-    fn shifted_step(&mut self, _row_shift: &[f64], _gradient_shift: &[f64], _out: &mut [f64]) -> bool {
+    fn shifted_step(
+        &mut self,
+        _row_shift: &[f64],
+        _gradient_shift: &[f64],
+        _out: &mut [f64],
+    ) -> bool {
         false
     }
 }

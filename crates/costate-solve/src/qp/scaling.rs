@@ -115,7 +115,11 @@ impl Equilibration {
         let gradient =
             qp.gradient.iter().zip(&self.d).fold(0.0_f64, |a, (g, d)| a.max((g * d).abs()));
         let size = (curvature / n).max(gradient);
-        self.c = if size > 0.0 && size.is_finite() { (1.0 / size).clamp(1.0 / LIMIT, LIMIT) } else { 1.0 };
+        self.c = if size > 0.0 && size.is_finite() {
+            (1.0 / size).clamp(1.0 / LIMIT, LIMIT)
+        } else {
+            1.0
+        };
 
         let s = &mut self.scaled;
         for k in 0..l.stages() {

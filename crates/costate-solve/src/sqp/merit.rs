@@ -82,7 +82,13 @@ impl LineSearch<'_> {
         let st = self.settings;
         let phi0 = wk.merit(wk.point.f, &wk.point.c);
         if std::env::var_os("COSTATE_LS_TRACE").is_some() {
-            let (jmax, dmax) = wk.step.iter().enumerate().fold((0, 0.0_f64), |a, (j, v)| if v.abs() > a.1 { (j, v.abs()) } else { a });
+            let (jmax, dmax) = wk.step.iter().enumerate().fold((0, 0.0_f64), |a, (j, v)| {
+                if v.abs() > a.1 {
+                    (j, v.abs())
+                } else {
+                    a
+                }
+            });
             let k = wk.setup.stages.stage_of_var(jmax);
             eprintln!("  step: |d| {dmax:.3e} at var {jmax} (stage {k}, local {}) y {:.4e} d {:.4e}; stage 0 d {:?}", jmax - wk.setup.stages.vars(k).start, wk.point.y[jmax], wk.step[jmax], &wk.step[wk.setup.stages.vars(0)]);
         }
@@ -104,10 +110,8 @@ impl LineSearch<'_> {
                         row.step_length = alpha;
                         return Ok(Search::Accepted);
                     }
-                    let soc = alpha == 1.0
-                        && allow_soc
-                        && st.second_order_correction
-                        && wk.setup.m > 0;
+                    let soc =
+                        alpha == 1.0 && allow_soc && st.second_order_correction && wk.setup.m > 0;
                     let accept = phi0 + st.sufficient_decrease * slope + noise;
                     if soc && self.correction(problem, wk, accept, row)? {
                         row.step_length = 1.0;

@@ -210,6 +210,9 @@ pub struct IterationRow {
     pub hessian_shift: f64,
     /// Exact Hessian blocks that were not positive definite.
     pub convexified_blocks: u32,
+    /// Constraints expected to stay active whose augmented-Lagrangian term entered the
+    /// convexified model (0 when the blocks were made convex one by one, or for BFGS).
+    pub augmented: u32,
     /// QP solves this iteration (regular, elastic, second-order correction).
     pub qp_solves: u32,
     /// BFGS blocks damped / skipped in the update after this step.
@@ -650,6 +653,12 @@ impl Sqp {
         }
         row.hessian_shift = c.largest_raise;
         row.convexified_blocks = c.blocks;
+        row.augmented = if wk.chain_convexified {
+            let active = |v: &[f64]| v.iter().filter(|&&r| r != 0.0).count();
+            u32::try_from(active(&wk.aug.var) + active(&wk.aug.row)).unwrap_or(u32::MAX)
+        } else {
+            0
+        };
         Ok(Ok(()))
     }
 
@@ -661,7 +670,12 @@ impl Sqp {
         if wk.chain_convexified {
             wk.chain_convexified = false;
             wk.model.qp.hessian.copy_from_slice(&wk.hess_orig);
-            convexify_blocks(&wk.setup.stages, &mut wk.model.qp.hessian, wk.floor, &mut wk.convexifier);
+            convexify_blocks(
+                &wk.setup.stages,
+                &mut wk.model.qp.hessian,
+                wk.floor,
+                &mut wk.convexifier,
+            );
             wk.model.qp.gradient.copy_from_slice(&wk.point.g);
         }
         Ok(())
@@ -694,8 +708,23 @@ impl Sqp {
             let mut reference = crate::qp::ClarabelQp::default();
             let mut rs = crate::qp::QpSolution::new(wk.setup.n, wk.setup.m);
             let _ = reference.solve(&wk.model.qp, &mut rs);
-            let nans: Vec<usize> = wk.model.sol.step.iter().enumerate().filter(|(_, v)| !v.is_finite()).map(|(j, _)| j).collect();
-            if !nans.is_empty() { eprintln!("NaN at {:?} of {}; stages {:?}", &nans[..nans.len().min(10)], wk.setup.n, (0..3).map(|k| wk.setup.stages.vars(k)).collect::<Vec<_>>()); }
+            let nans: Vec<usize> = wk
+                .model
+                .sol
+                .step
+                .iter()
+                .enumerate()
+                .filter(|(_, v)| !v.is_finite())
+                .map(|(j, _)| j)
+                .collect();
+            if !nans.is_empty() {
+                eprintln!(
+                    "NaN at {:?} of {}; stages {:?}",
+                    &nans[..nans.len().min(10)],
+                    wk.setup.n,
+                    (0..3).map(|k| wk.setup.stages.vars(k)).collect::<Vec<_>>()
+                );
+            }
             eprintln!("qp: {:?} it {} |lam| {:.2e} |d| {:.2e} | clarabel {:?} it {} |lam| {:.2e} |d| {:.2e} diff {:.2e}", wk.model.sol.status, wk.model.sol.iterations, inf_norm(&wk.model.sol.row_multipliers), inf_norm(&wk.model.sol.step), rs.status, rs.iterations, inf_norm(&rs.row_multipliers), inf_norm(&rs.step), wk.model.sol.step.iter().zip(&rs.step).fold(0.0_f64, |a, (x, y)| a.max((x - y).abs())));
         }
         let sol = &wk.model.sol;
@@ -705,7 +734,11 @@ impl Sqp {
         // drive the penalty and the Hessian's constraint curvature up by as much; the elastic
         // QP at the current weight caps them, as in the l1 penalty QP of R. Fletcher,
         // "Practical Methods of Optimization", 2nd ed., 1987, Section 14.4.
-        let cap = if std::env::var_os("COSTATE_CAP").is_some() { (10.0 * wk.penalty).max(st.elastic_multiplier_limit.min(1e3)) } else { st.elastic_multiplier_limit };
+        let cap = if std::env::var_os("COSTATE_CAP").is_some() {
+            (10.0 * wk.penalty).max(st.elastic_multiplier_limit.min(1e3))
+        } else {
+            st.elastic_multiplier_limit
+        };
         let usable = sol.status.has_solution()
             && inf_norm(&sol.row_multipliers) <= cap
             && inf_norm(&sol.step).is_finite()
@@ -889,7 +922,8 @@ impl Sqp {
         let s = &wk.setup;
         lagrangian_gradient(s, &wk.point.g, &wk.point.jac, &wk.lambda, &mut wk.lg);
         projected_bound_multipliers(s, &wk.point.y, &wk.lg, &mut wk.nu_proj);
-        let worst = |nu: &[f64]| wk.lg.iter().zip(nu).fold(0.0_f64, |a, (l, v)| a.max((l + v).abs()));
+        let worst =
+            |nu: &[f64]| wk.lg.iter().zip(nu).fold(0.0_f64, |a, (l, v)| a.max((l + v).abs()));
         let qp_ok = wk.step_nu.iter().all(|v| v.is_finite());
         if qp_ok && worst(&wk.step_nu) < worst(&wk.nu_proj) {
             wk.nu.copy_from_slice(&wk.step_nu);
@@ -987,6 +1021,9 @@ impl Sqp {
     }
 }
 
+/// The highest relative eigenvalue floor the recoveries raise the convexification to.
+const HIGHEST_FLOOR: f64 = 1e-2;
+
 /// The largest raise of a free block's curvature (scaled variables, scaled objective) that
 /// the chain convexification may make and still be used; beyond it the blocks are made convex
 /// one by one. Measured on the reference fixtures: Goddard's rocket needs raises up to about
@@ -1077,7 +1114,9 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         let t = Instant::now();
         let values = s.values(problem, &point.y, &mut point.c, &mut buf)?;
         let derivs = match &values {
-            Ok(_) => Some(s.derivatives(problem, &point.y, &mut point.g, &mut point.jac, &mut buf)?),
+            Ok(_) => {
+                Some(s.derivatives(problem, &point.y, &mut point.g, &mut point.jac, &mut buf)?)
+            }
             Err(_) => None,
         };
         self.eval_time += t.elapsed();
@@ -1093,7 +1132,11 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         // Scale the objective so its gradient at the start has a standard size: the
         // tolerances are then relative to a number of order one, whether the cost is 1e-9 s
         // or 1e9 J. A zero gradient leaves the objective's own size to decide.
-        let target = if std::env::var_os("COSTATE_OBJ_OLD").is_some() { f64::INFINITY } else { self.settings.objective_gradient_target };
+        let target = if std::env::var_os("COSTATE_OBJ_OLD").is_some() {
+            f64::INFINITY
+        } else {
+            self.settings.objective_gradient_target
+        };
         if target.is_finite() {
             let size = inf_norm(&point.g);
             let size = if size > 0.0 { size } else { point.f.abs() };
@@ -1117,7 +1160,11 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             }
         }
         let hess_len = s.hess.as_ref().map_or(0, |h| h.pattern.len());
-        let riccati = s.hess.as_ref().and_then(|_| RiccatiConvexifier::new(&s.stages, &s.jac)).filter(|_| std::env::var_os("COSTATE_NO_RICCATI").is_none());
+        let riccati = s
+            .hess
+            .as_ref()
+            .and_then(|_| RiccatiConvexifier::new(&s.stages, &s.jac))
+            .filter(|_| std::env::var_os("COSTATE_NO_RICCATI").is_none());
         let hess_orig = vec![0.0; s.stages.hessian_len()];
         let model = QpModel::new(&s);
         let convexifier = Convexifier::new(&s.stages);
@@ -1187,6 +1234,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             qp_time: Duration::ZERO,
             hessian_shift: 0.0,
             convexified_blocks: 0,
+            augmented: 0,
             qp_solves: 0,
             bfgs: BfgsUpdate::default(),
             second_order_correction: false,
@@ -1221,18 +1269,40 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             qp_time: Duration::ZERO,
             hessian_shift: 0.0,
             convexified_blocks: 0,
+            augmented: 0,
             qp_solves: 0,
             bfgs: BfgsUpdate::default(),
             second_order_correction: false,
             backtracks: 0,
         };
 
-        // 1. Model.
-        if let Err(error) = self.model(problem, &mut row)? {
-            return self.end_with(state, row, SqpStatus::EvaluationFailed { error });
-        }
-        // 2. Step.
-        let (kind, qp_failure) = match self.step(&mut row)? {
+        // 1. Model, 2. step. An unbounded QP (curvature at the floor along a direction the
+        // objective falls without end) is solved again at once with a higher floor, so that
+        // every iteration moves (BFGS: after a reset to the scaled identity).
+        let mut retried = false;
+        let outcome = loop {
+            if let Err(error) = self.model(problem, &mut row)? {
+                return self.end_with(state, row, SqpStatus::EvaluationFailed { error });
+            }
+            let outcome = self.step(&mut row)?;
+            let wk = self.work.as_mut().ok_or_else(uninit)?;
+            if matches!(outcome, StepOutcome::NoStep(QpStatus::Unbounded)) {
+                match &mut wk.bfgs {
+                    Some(bfgs) if !retried => {
+                        bfgs.reset();
+                        retried = true;
+                        continue;
+                    }
+                    None if wk.floor < HIGHEST_FLOOR => {
+                        wk.floor = (wk.floor * 1e3).min(HIGHEST_FLOOR);
+                        continue;
+                    }
+                    _ => {}
+                }
+            }
+            break outcome;
+        };
+        let (kind, qp_failure) = match outcome {
             StepOutcome::Regular => (StepKind::Regular, None),
             StepOutcome::Elastic => (StepKind::Elastic, None),
             StepOutcome::Infeasible(conflict) => {
@@ -1301,7 +1371,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             match &mut wk.bfgs {
                 Some(bfgs) => bfgs.reset(),
                 // A higher eigenvalue floor shortens the steps along weak curvature.
-                None => wk.floor = (wk.floor * 1e3).min(1e-2),
+                None => wk.floor = (wk.floor * 1e3).min(HIGHEST_FLOOR),
             }
             row.step_kind = StepKind::None;
         }

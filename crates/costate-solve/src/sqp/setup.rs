@@ -132,9 +132,7 @@ pub(crate) fn setup<N: Nlp + ?Sized>(nlp: &N, settings: &SqpSettings) -> Result<
         match stages.jacobian_position(r, c) {
             Some(p) => jac_pos.push(p),
             None => {
-                return bad(format!(
-                    "jacobian entry ({r}, {c}) lies outside the stages of its row"
-                ))
+                return bad(format!("jacobian entry ({r}, {c}) lies outside the stages of its row"))
             }
         }
     }

@@ -250,21 +250,16 @@ impl ExactHessian {
             })
             .collect();
 
-        let path_maps = (0..l.n_nodes())
-            .map(|k| pb.map(&ocp.path, &|j| running_var(l, mesh, k, j)))
-            .collect();
+        let path_maps =
+            (0..l.n_nodes()).map(|k| pb.map(&ocp.path, &|j| running_var(l, mesh, k, j))).collect();
 
         let endpoint = |pb: &mut PatternBuilder, f: &Function, at_start: bool| {
             pb.map(f, &|j| endpoint_var(l, &ep, at_start, j).map(|v| (v, 1.0)))
         };
-        let objective_maps = [
-            endpoint(&mut pb, &ocp.objective, true),
-            endpoint(&mut pb, &ocp.objective, false),
-        ];
-        let boundary_maps = [
-            endpoint(&mut pb, &ocp.boundary, true),
-            endpoint(&mut pb, &ocp.boundary, false),
-        ];
+        let objective_maps =
+            [endpoint(&mut pb, &ocp.objective, true), endpoint(&mut pb, &ocp.objective, false)];
+        let boundary_maps =
+            [endpoint(&mut pb, &ocp.boundary, true), endpoint(&mut pb, &ocp.boundary, false)];
         Some(ExactHessian {
             pattern: pb.pattern,
             path: Part::new(&ocp.path),

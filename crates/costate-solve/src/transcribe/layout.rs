@@ -223,7 +223,12 @@ impl Layout {
         if k == self.intervals {
             return 0;
         }
-        self.nx + self.n_control_copies(k) + self.np + usize::from(self.free_end) + self.nq + self.ns()
+        self.nx
+            + self.n_control_copies(k)
+            + self.np
+            + usize::from(self.free_end)
+            + self.nq
+            + self.ns()
     }
 
     /// The stage structure: one stage per node.
@@ -340,7 +345,12 @@ impl Layout {
 
     /// Row `q_{k+1} = q_k + Q_k` of integral `j`.
     pub fn integral_row(&self, k: usize, j: usize) -> usize {
-        self.coupling_start(k) + self.nx + self.n_control_copies(k) + self.np + usize::from(self.free_end) + j
+        self.coupling_start(k)
+            + self.nx
+            + self.n_control_copies(k)
+            + self.np
+            + usize::from(self.free_end)
+            + j
     }
 
     /// Row carrying the `c`-th start value into node `k + 1`.
@@ -363,8 +373,7 @@ impl Layout {
                 return (ViolationSource::Function(FunctionKind::Path, off), Some(k));
             }
             off -= self.ng;
-            let rows =
-                if k == 0 { &self.placement.start_rows } else { &self.placement.end_rows };
+            let rows = if k == 0 { &self.placement.start_rows } else { &self.placement.end_rows };
             return (ViolationSource::Function(FunctionKind::Boundary, rows[off]), None);
         }
         off -= self.local_rows(k);
@@ -474,13 +483,19 @@ mod tests {
                             (ViolationSource::StateBound(i), Some(k))
                         );
                         mark(l.p_at(k, i));
-                        assert_eq!(l.decode_variable(l.p_at(k, i)).0, ViolationSource::ParamBound(i));
+                        assert_eq!(
+                            l.decode_variable(l.p_at(k, i)).0,
+                            ViolationSource::ParamBound(i)
+                        );
                     }
                     mark(l.u_at(k, 0));
                     assert_eq!(l.decode_variable(l.u_at(k, 0)).0, ViolationSource::ControlBound(0));
                     if linear && k < 4 {
                         mark(l.v(k, 0));
-                        assert_eq!(l.decode_variable(l.v(k, 0)).0, ViolationSource::ControlBound(0));
+                        assert_eq!(
+                            l.decode_variable(l.v(k, 0)).0,
+                            ViolationSource::ControlBound(0)
+                        );
                     }
                     if let Some(t) = l.tf_at(k) {
                         mark(t);

@@ -166,7 +166,12 @@ fn positive(s: f64) -> f64 {
 
 /// Where an endpoint input column lives at the node the function is evaluated at: the
 /// variable, or `None` (a constant, or an input the function does not read there).
-pub(crate) fn endpoint_var(l: &Layout, ep: &EndpointLayout, at_start: bool, col: usize) -> Option<usize> {
+pub(crate) fn endpoint_var(
+    l: &Layout,
+    ep: &EndpointLayout,
+    at_start: bool,
+    col: usize,
+) -> Option<usize> {
     let k = l.endpoint_node(at_start);
     if col == EndpointLayout::T0 {
         None
@@ -422,7 +427,12 @@ impl MultipleShooting {
             con_scale,
             start,
             interval_vars,
-            cache: Cache { w: vec![0.0; n], valid: false, with_sensitivities: false, outputs: Vec::new() },
+            cache: Cache {
+                w: vec![0.0; n],
+                valid: false,
+                with_sensitivities: false,
+                outputs: Vec::new(),
+            },
             last_failure: None,
             exact: None,
             offer_exact: true,
@@ -693,7 +703,13 @@ impl MultipleShooting {
         self.note(err, format!("path row {row} is {value} at node {k} (t = {t})"))
     }
 
-    fn endpoint_failure(&mut self, part: EvalPart, kind: FunctionKind, row: usize, value: f64) -> EvalError {
+    fn endpoint_failure(
+        &mut self,
+        part: EvalPart,
+        kind: FunctionKind,
+        row: usize,
+        value: f64,
+    ) -> EvalError {
         let index = if kind == FunctionKind::Boundary { self.layout.boundary_row(row) } else { 0 };
         let err = EvalError::non_finite(part, index, value).with_tag(function_tag(kind, row));
         let msg = if kind == FunctionKind::Objective {
@@ -728,7 +744,12 @@ impl MultipleShooting {
         Ok(())
     }
 
-    fn eval_objective(&mut self, w: &[f64], jacobian: bool, part: EvalPart) -> Result<(), EvalError> {
+    fn eval_objective(
+        &mut self,
+        w: &[f64],
+        jacobian: bool,
+        part: EvalPart,
+    ) -> Result<(), EvalError> {
         let at_start = self.layout.placement.objective_at_start;
         let mut input = std::mem::take(&mut self.objective.input);
         self.endpoint_input(w, at_start, &mut input);
@@ -1134,5 +1155,4 @@ impl Nlp for MultipleShooting {
     fn constraint_scales(&self, scales: &mut [f64]) {
         scales.copy_from_slice(&self.con_scale);
     }
-
 }

@@ -4,7 +4,6 @@
 
 #![allow(dead_code)]
 
-
 use costate_solve::{EvalError, Nlp, Pattern};
 
 pub type Scalar = Box<dyn Fn(&[f64]) -> f64>;
