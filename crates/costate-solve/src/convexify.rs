@@ -277,9 +277,6 @@ impl RiccatiConvexifier {
                         out.largest_raise = out.largest_raise.max(e.abs().max(floor) - e);
                     }
                 }
-                if std::env::var_os("COSTATE_CV_TRACE").is_some() {
-                    eprintln!("  stage {k}: free {free_list:?} eig {:?}", &d[..free]);
-                }
                 // Per determined column: its coupling in the eigenbasis, kept on the positive
                 // directions only; S'R+^{-1}S from those.
                 let x = &mut self.w[..free * dk];

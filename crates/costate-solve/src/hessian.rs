@@ -232,7 +232,7 @@ fn cholesky_in_place(a: &mut [f64], n: usize, floor: f64) -> bool {
         for p in 0..j {
             d -= a[j + p * n] * a[j + p * n];
         }
-        if !(d > floor) || !d.is_finite() {
+        if d.is_nan() || d <= floor || !d.is_finite() {
             return false;
         }
         let r = d.sqrt();

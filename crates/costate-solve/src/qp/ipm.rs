@@ -783,9 +783,6 @@ impl Workspace {
             self.dy = dy;
             self.dz = dz;
             let norm = inf_norm(&self.cx).max(inf_norm(&self.cy)).max(inf_norm(&self.cz));
-            if std::env::var_os("COSTATE_REF_TRACE").is_some() {
-                eprintln!("ref {norm:.2e} scale {scale:.2e}");
-            }
             if norm <= 1e-13 * scale || norm > 0.5 * last {
                 break;
             }
@@ -939,18 +936,6 @@ impl Workspace {
         self.dy.copy_from_slice(&self.b);
         self.dz.copy_from_slice(&self.h);
         self.newton_solve(qp);
-        if std::env::var_os("COSTATE_X0").is_some() {
-            self.dx.fill(0.0);
-            let mut gx = std::mem::take(&mut self.gx);
-            self.sides_times(qp, &self.dx, &mut gx);
-            for t in 0..ms {
-                self.dz[t] = gx[t] - self.h[t];
-            }
-            self.gx = gx;
-            if std::env::var_os("COSTATE_Y0").is_some() {
-                self.dy.fill(0.0);
-            }
-        }
         self.x.copy_from_slice(&self.dx);
         self.y.copy_from_slice(&self.dy);
         // dz = G x - h: the primal slack is its negative, the dual start the vector itself.
@@ -1130,9 +1115,6 @@ impl Workspace {
             if let Some(st) = self.certificate(eps) {
                 break st;
             }
-            if std::env::var_os("COSTATE_IPM_TRACE").is_some() {
-                eprintln!("ipm {iterations}: err {error:.2e} mu {:.2e} rx {:.2e} ry {:.2e} rz {:.2e} |x| {:.2e} |w| {:.2e} |s| {:.2e} perturbed {} minS {:.2e} minZ {:.2e}", if ms > 0 { dot(&self.s, &self.z) / ms as f64 } else { 0.0 }, inf_norm(&self.rx), inf_norm(&self.ry), inf_norm(&self.rz), inf_norm(&self.x), inf_norm(&self.y).max(inf_norm(&self.z)), inf_norm(&self.s), self.kkt.perturbed, self.s.iter().fold(f64::INFINITY, |a, &b| a.min(b)), self.z.iter().fold(f64::INFINITY, |a, &b| a.min(b)));
-            }
             if error < best {
                 best = error;
                 best_at = iterations;
@@ -1152,7 +1134,7 @@ impl Workspace {
                 if let Some(st) = self.certificate(tol) {
                     break st;
                 }
-                if !(error <= best) {
+                if error.is_nan() || error > best {
                     self.restore_best();
                 }
                 let xpx = self.residuals(qp);
@@ -1185,18 +1167,9 @@ impl Workspace {
             // Far from the solution the condensed solve is accurate enough (its error is
             // relative to barrier weights that are still of one size); near it refinement
             // recovers what condensing loses.
-            self.direction(
-                qp,
-                settings,
-                sigma * mu,
-                true,
-                error < REFINE_BELOW || std::env::var_os("COSTATE_REFINE_ALL").is_some(),
-            );
+            self.direction(qp, settings, sigma * mu, true, error < REFINE_BELOW);
             let alpha0 = self.damped_step(settings.step_fraction);
             let alpha = self.keep_centred(alpha0);
-            if std::env::var_os("COSTATE_IPM_TRACE").is_some() {
-                eprintln!("   alpha_aff {alpha_aff:.3e} sigma {sigma:.3e} alpha0 {alpha0:.3e} alpha {alpha:.3e}");
-            }
             slow = if alpha < 1e-8 { slow + 1 } else { 0 };
             for j in 0..self.x.len() {
                 self.x[j] += alpha * self.dx[j];

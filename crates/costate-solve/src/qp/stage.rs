@@ -353,7 +353,7 @@ impl StageQp {
                 return bad(format!("coupling row {i} is not an equality"));
             }
         }
-        if let Some(i) = self.row_penalty.iter().position(|&w| !(w > 0.0)) {
+        if let Some(i) = self.row_penalty.iter().position(|&w| w.is_nan() || w <= 0.0) {
             return bad(format!("row {i}: penalty not positive"));
         }
         for j in 0..n {

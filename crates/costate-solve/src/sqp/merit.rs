@@ -81,17 +81,6 @@ impl LineSearch<'_> {
     ) -> Result<Search, ArgminError> {
         let st = self.settings;
         let phi0 = wk.merit(wk.point.f, &wk.point.c);
-        if std::env::var_os("COSTATE_LS_TRACE").is_some() {
-            let (jmax, dmax) = wk.step.iter().enumerate().fold((0, 0.0_f64), |a, (j, v)| {
-                if v.abs() > a.1 {
-                    (j, v.abs())
-                } else {
-                    a
-                }
-            });
-            let k = wk.setup.stages.stage_of_var(jmax);
-            eprintln!("  step: |d| {dmax:.3e} at var {jmax} (stage {k}, local {}) y {:.4e} d {:.4e}; stage 0 d {:?}", jmax - wk.setup.stages.vars(k).start, wk.point.y[jmax], wk.step[jmax], &wk.step[wk.setup.stages.vars(0)]);
-        }
         // Merit changes below rounding (a few dozen ulps of the merit) count as no increase:
         // near a solution the predicted decrease is itself at rounding level, and demanding
         // it exactly would reject every step there and leave a stationarity floor.
@@ -102,9 +91,6 @@ impl LineSearch<'_> {
         loop {
             match self.trial(problem, wk, alpha)? {
                 Ok(phi) => {
-                    if std::env::var_os("COSTATE_LS_TRACE").is_some() && row.backtracks < 4 {
-                        eprintln!("  ls alpha {alpha:.3e} phi0 {phi0:.10e} phi {phi:.10e} slope {slope:.3e} f {:.8e} viol {:.3e} (now {:.3e})", wk.trial.f, super::termination::l1_violation(&wk.setup, &wk.trial.c), super::termination::l1_violation(&wk.setup, &wk.point.c));
-                    }
                     any_value = true;
                     if phi <= phi0 + st.sufficient_decrease * alpha * slope + noise {
                         row.step_length = alpha;

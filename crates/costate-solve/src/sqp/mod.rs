@@ -595,9 +595,9 @@ impl Sqp {
         }
     }
 
-    /// 1. The QP at the current point: gradient, constraints and bounds, and the Hessian
-    /// model, the exact one made convex (keeping the QP's solution where the chain allows,
-    /// `convexify.rs`) or BFGS.
+    /// Step 1, the QP at the current point: gradient, constraints and bounds, and the
+    /// Hessian model, the exact one made convex (keeping the QP's solution where the chain
+    /// allows, `convexify.rs`) or BFGS.
     fn model<N: Nlp>(
         &mut self,
         problem: &mut Problem<N>,
@@ -681,7 +681,7 @@ impl Sqp {
         Ok(())
     }
 
-    /// 2. Solve the QP; when it has no usable solution, the elastic QP (or, when the
+    /// Step 2, solve the QP; when it has no usable solution, the elastic QP (or, when the
     /// violation alone is stationary, a verdict of local infeasibility).
     fn step(&mut self, row: &mut IterationRow) -> Result<StepOutcome, ArgminError> {
         let st = self.settings.clone();
@@ -704,29 +704,6 @@ impl Sqp {
         row.qp_solves += 1;
         row.qp_iterations += wk.model.sol.iterations;
         row.qp_status = Some(wk.model.sol.status);
-        if std::env::var_os("COSTATE_QP_TRACE").is_some() {
-            let mut reference = crate::qp::ClarabelQp::default();
-            let mut rs = crate::qp::QpSolution::new(wk.setup.n, wk.setup.m);
-            let _ = reference.solve(&wk.model.qp, &mut rs);
-            let nans: Vec<usize> = wk
-                .model
-                .sol
-                .step
-                .iter()
-                .enumerate()
-                .filter(|(_, v)| !v.is_finite())
-                .map(|(j, _)| j)
-                .collect();
-            if !nans.is_empty() {
-                eprintln!(
-                    "NaN at {:?} of {}; stages {:?}",
-                    &nans[..nans.len().min(10)],
-                    wk.setup.n,
-                    (0..3).map(|k| wk.setup.stages.vars(k)).collect::<Vec<_>>()
-                );
-            }
-            eprintln!("qp: {:?} it {} |lam| {:.2e} |d| {:.2e} | clarabel {:?} it {} |lam| {:.2e} |d| {:.2e} diff {:.2e}", wk.model.sol.status, wk.model.sol.iterations, inf_norm(&wk.model.sol.row_multipliers), inf_norm(&wk.model.sol.step), rs.status, rs.iterations, inf_norm(&rs.row_multipliers), inf_norm(&rs.step), wk.model.sol.step.iter().zip(&rs.step).fold(0.0_f64, |a, (x, y)| a.max((x - y).abs())));
-        }
         let sol = &wk.model.sol;
         // Huge multipliers mean nearly inconsistent linearised constraints: the step would be
         // long and the penalty would explode, so the elastic step is taken instead.
@@ -734,11 +711,7 @@ impl Sqp {
         // drive the penalty and the Hessian's constraint curvature up by as much; the elastic
         // QP at the current weight caps them, as in the l1 penalty QP of R. Fletcher,
         // "Practical Methods of Optimization", 2nd ed., 1987, Section 14.4.
-        let cap = if std::env::var_os("COSTATE_CAP").is_some() {
-            (10.0 * wk.penalty).max(st.elastic_multiplier_limit.min(1e3))
-        } else {
-            st.elastic_multiplier_limit
-        };
+        let cap = st.elastic_multiplier_limit;
         let usable = sol.status.has_solution()
             && inf_norm(&sol.row_multipliers) <= cap
             && inf_norm(&sol.step).is_finite()
@@ -844,8 +817,8 @@ impl Sqp {
         Ok(Some(conflict))
     }
 
-    /// 3. Penalty: above the multipliers and large enough for a model decrease; returns the
-    /// slope of the merit function along the step predicted by the QP model.
+    /// Step 3, the penalty: above the multipliers and large enough for a model decrease;
+    /// returns the slope of the merit function along the step predicted by the QP model.
     fn update_penalty(&mut self, kind: StepKind) -> Result<f64, ArgminError> {
         let st = &self.settings;
         let wk = self.work.as_mut().ok_or_else(uninit)?;
@@ -1059,9 +1032,9 @@ fn estimate_active(
     for i in 0..s.m {
         let (row, res) = if s.stages.stage_of_row(i).1 {
             (0.0, 0.0)
-        } else if !s.inequality[i] {
-            (rho, p.c[i] - s.cu[i])
-        } else if lambda[i] > 0.0 && s.cu[i].is_finite() && near(p.c[i], s.cu[i]) {
+        } else if !s.inequality[i]
+            || (lambda[i] > 0.0 && s.cu[i].is_finite() && near(p.c[i], s.cu[i]))
+        {
             (rho, p.c[i] - s.cu[i])
         } else if lambda[i] < 0.0 && s.cl[i].is_finite() && near(p.c[i], s.cl[i]) {
             (rho, p.c[i] - s.cl[i])
@@ -1132,11 +1105,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         // Scale the objective so its gradient at the start has a standard size: the
         // tolerances are then relative to a number of order one, whether the cost is 1e-9 s
         // or 1e9 J. A zero gradient leaves the objective's own size to decide.
-        let target = if std::env::var_os("COSTATE_OBJ_OLD").is_some() {
-            f64::INFINITY
-        } else {
-            self.settings.objective_gradient_target
-        };
+        let target = self.settings.objective_gradient_target;
         if target.is_finite() {
             let size = inf_norm(&point.g);
             let size = if size > 0.0 { size } else { point.f.abs() };
@@ -1160,11 +1129,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             }
         }
         let hess_len = s.hess.as_ref().map_or(0, |h| h.pattern.len());
-        let riccati = s
-            .hess
-            .as_ref()
-            .and_then(|_| RiccatiConvexifier::new(&s.stages, &s.jac))
-            .filter(|_| std::env::var_os("COSTATE_NO_RICCATI").is_none());
+        let riccati = s.hess.as_ref().and_then(|_| RiccatiConvexifier::new(&s.stages, &s.jac));
         let hess_orig = vec![0.0; s.stages.hessian_len()];
         let model = QpModel::new(&s);
         let convexifier = Convexifier::new(&s.stages);

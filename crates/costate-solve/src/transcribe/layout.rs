@@ -19,6 +19,7 @@
 //! - the control at the last node: for piecewise-constant controls a copy `u_N = u_{N-1}`, so
 //!   the path rows at the last node see it locally; for piecewise-linear controls each
 //!   interval's end value `v_k` is a variable of node `k` and `u_{k+1} = v_k`.
+//!
 //! Endpoint functions (objective, boundary rows) that read no end value and no integral are
 //! evaluated at node 0, all others at node `N`.
 //!

@@ -956,7 +956,7 @@ impl Nlp for MultipleShooting {
             }
         }
         for at_start in [true, false] {
-            if !self.boundary_at_start.iter().any(|&s| s == at_start) {
+            if !self.boundary_at_start.contains(&at_start) {
                 continue;
             }
             self.eval_boundary(w, at_start, false, EvalPart::Constraints)?;
@@ -1058,8 +1058,7 @@ impl Nlp for MultipleShooting {
             // Node 0 holds the boundary rows that read only start values, the last node the
             // others (there is always at least one interval, so they differ).
             let at_start = k == 0;
-            let here = (k == 0 || k == l.intervals)
-                && self.boundary_at_start.iter().any(|&s| s == at_start);
+            let here = (k == 0 || k == l.intervals) && self.boundary_at_start.contains(&at_start);
             if here {
                 self.eval_boundary(w, at_start, true, EvalPart::Jacobian)?;
                 for (a, &(r, c)) in self.boundary.fun.jacobian_pattern().iter().enumerate() {
