@@ -5,8 +5,11 @@
 //! are plain indices and the problem's own [`EvalError`] codes.
 //!
 //! One iteration ([`Sqp::next_iter`]), in scaled variables `y = w / scale` ([`Scaling`]):
-//! 1. Hessian model: block BFGS, or the exact Lagrangian Hessian with each stage block made
-//!    positive definite on its own (`hessian.rs`), so every QP is strictly convex.
+//! 1. Hessian model: block BFGS, or the exact Lagrangian Hessian made convex along the chain
+//!    of stages so that the QP keeps the Newton step (`convexify.rs`, with an augmented term
+//!    on the constraints expected to stay active); where that would have to raise a free
+//!    block's curvature by more than `CHAIN_RAISE_LIMIT`, each stage block is made positive
+//!    definite on its own instead (`hessian.rs`). Every QP is strictly convex.
 //! 2. QP `min 1/2 d'Bd + g'd  subject to  cl <= c + J d <= cu,  yl <= y + d <= yu` on the
 //!    stage structure (`model.rs`). If it has no solution or its multipliers explode (a nearly
 //!    inconsistent linearisation), the elastic QP relaxes every row with nonnegative slacks
@@ -27,6 +30,11 @@
 //!    (or are cut by the line search without lowering the merit), the solve ends "solved to
 //!    reduced accuracy" if the loosened tolerances hold, "locally infeasible" if the violation
 //!    is stationary, else stalled ([`StallReason::NoProgress`]).
+//! 7. Restart: with the Hessian left to the solver ([`HessianMode::Auto`]) and exact, a dead
+//!    end (stalled or locally infeasible) goes back once to the starting point with block
+//!    BFGS, within the same solve: a row marked `restart:bfgs`, the iterations counted on
+//!    against the same limit. (A minimum-time problem whose first exact step jumps the final
+//!    time to its lower bound needs it: the double integrator from (1, 1).)
 //!
 //! Termination on scaled KKT residuals ([`Residuals`], `termination.rs`); "solved" is only ever
 //! reported when the feasibility, stationarity and complementarity tolerances all hold.
