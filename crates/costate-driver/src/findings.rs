@@ -39,8 +39,29 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
                 .with_help("keep the arguments of `sqrt`, `log`, divisions and powers in their domain with bounds, or give a better `guess`"),
             );
         }
-        OcpStatus::LocallyInfeasible { violations, .. } => {
-            out.extend(violated_constraints(loaded, solution, violations));
+        OcpStatus::LocallyInfeasible { violations, conflict } => {
+            let mut found = violated_constraints(loaded, solution, violations);
+            // The bounds that hold the violation up go on the worst finding as labels, each
+            // with its value in the declared unit: they, not the rows where the violation
+            // shows, are what the user has to change.
+            let last = solution.trajectory.times.len().saturating_sub(1);
+            if let Some(first) = found.first_mut() {
+                for c in conflict.iter().take(MAX_CONFLICT_LABELS) {
+                    let (span, what) = describe_violation(loaded, c.what);
+                    let value = conflict_value(loaded, c.what, c.bound);
+                    let which = match c.nodes.as_slice() {
+                        [0] if matches!(c.what, ViolationSource::StateBound(_)) => "start value",
+                        [k] if *k == last && matches!(c.what, ViolationSource::StateBound(_)) => {
+                            "end value"
+                        }
+                        _ if c.upper => "upper bound",
+                        _ => "lower bound",
+                    };
+                    let label = format!("in conflict: the {which} {value} of {what}");
+                    *first = first.clone().with_label(span, label);
+                }
+            }
+            out.extend(found);
         }
         OcpStatus::IterationLimit | OcpStatus::TimeLimit | OcpStatus::Stalled(_) => {
             out.extend(runaway_variables(loaded, solution));
@@ -59,6 +80,10 @@ fn describe_kind(kind: FunctionKind) -> &'static str {
         FunctionKind::Boundary => "a boundary constraint",
     }
 }
+
+/// At most this many bounds of a locally infeasible point's conflict are shown, the strongest
+/// first (its multipliers spread over more items than the cause; ten keep the cause in view).
+const MAX_CONFLICT_LABELS: usize = 10;
 
 /// At most this many violated constraints are reported, the worst first.
 const MAX_REPORTED_CONSTRAINTS: usize = 5;
@@ -137,6 +162,24 @@ fn describe_violation(loaded: &Loaded, source: ViolationSource) -> (Span, String
             (s.decl_span, format!("the bounds of parameter `{}`", s.name))
         }
         ViolationSource::EndTime => (map.time.decl_span, format!("the end of `{}`", map.time.name)),
+    }
+}
+
+/// A bound's value in the declared unit of what it bounds (rows: as the solver sees them).
+fn conflict_value(loaded: &Loaded, source: ViolationSource, bound: f64) -> String {
+    let map = &loaded.lowered.source_map;
+    let var = |s: Option<&costate_lower::VarSource>| match s {
+        Some(s) => crate::report::with_unit(s.to_user(bound), s.unit.as_deref()),
+        None => crate::report::sig(bound, 4),
+    };
+    match source {
+        ViolationSource::StateBound(i) | ViolationSource::Continuity(i) => var(map.states.get(i)),
+        ViolationSource::ControlBound(i) => var(map.controls.get(i)),
+        ViolationSource::ParamBound(i) => var(map.params.get(i)),
+        ViolationSource::EndTime => {
+            crate::report::with_unit(map.time.to_user(bound), map.time.unit.as_deref())
+        }
+        ViolationSource::Function(..) => crate::report::sig(bound, 4),
     }
 }
 
