@@ -201,6 +201,21 @@ fn inconsistent_boundary_conditions_are_reported_once_on_the_boundary_line() {
 }
 
 #[test]
+fn an_unreachable_end_names_the_bounds_in_conflict_in_declared_units() {
+    // 200 m in 60 s at no more than 7.2 km/h (2 m/s) is 80 m out of reach: the end value and
+    // the speed bound must both be named, in the units they were written in.
+    let (code, stderr, stdout) = solve_text(
+        "unreachable",
+        "problem unreachable\ntime t [s]: start 0, end 60\nstate {\n  x [m]: start 0, end 200\n  v [km/h]: start 0, end 0, in -7.2 .. 7.2\n}\ncontrol { a [m/s^2]: in -1 .. 1 }\ndynamics {\n  x' = v\n  v' = a\n}\ncost { minimize integral(a^2) }\nsolve { intervals = 40 }\n",
+        &[],
+    );
+    assert_eq!(code, Some(1), "{stdout}{stderr}");
+    assert!(stdout.contains("locally infeasible"), "{stdout}");
+    assert!(stderr.contains("the end value 200 m of the bounds of state `x`"), "{stderr}");
+    assert!(stderr.contains("the upper bound 7.2 km/h of the bounds of state `v`"), "{stderr}");
+}
+
+#[test]
 fn an_unbounded_cost_names_the_variable_without_a_bound() {
     let (code, stderr, stdout) = solve_text(
         "runaway",

@@ -49,11 +49,11 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
                 for c in conflict.iter().take(MAX_CONFLICT_LABELS) {
                     let (span, what) = describe_violation(loaded, c.what);
                     let value = conflict_value(loaded, c.what, c.bound);
+                    let state = matches!(c.what, ViolationSource::StateBound(_));
                     let which = match c.nodes.as_slice() {
-                        [0] if matches!(c.what, ViolationSource::StateBound(_)) => "start value",
-                        [k] if *k == last && matches!(c.what, ViolationSource::StateBound(_)) => {
-                            "end value"
-                        }
+                        [0] if state => "start value",
+                        [k] if state && *k == last => "end value",
+                        [0, k] if state && *k == last => "start and end value",
                         _ if c.upper => "upper bound",
                         _ => "lower bound",
                     };
