@@ -31,8 +31,9 @@ pub struct SqpSettings {
     /// Largest accepted product of an inequality multiplier and its row's slack, scaled
     /// (dimensionless). Default `1e-8`.
     pub complementarity_tolerance: f64,
-    /// Factor by which the three tolerances above are loosened for "solved to reduced
-    /// accuracy", used only when the solver can make no further progress. Default `1e3`.
+    /// Factor by which the stationarity and complementarity tolerances are loosened for
+    /// "solved to reduced accuracy", used only when the solver can make no further progress;
+    /// the feasibility tolerance is loosened by at most 10. Default `1e3`.
     pub reduced_accuracy_factor: f64,
     /// Largest number of SQP iterations (QP solves with their line search). Default 500.
     pub max_iterations: u64,

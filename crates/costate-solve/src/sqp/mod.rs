@@ -67,8 +67,8 @@ use model::{ElasticKind, QpModel};
 pub use setup::Scaling;
 use setup::{EvalBuffers, Setup};
 use termination::{
-    dot, inf_norm, l1_violation, lagrangian_gradient, meets, projected_bound_multipliers,
-    residuals, violated_rows,
+    dot, inf_norm, l1_violation, lagrangian_gradient, meets, meets_reduced,
+    projected_bound_multipliers, residuals, violated_rows,
 };
 
 /// A row or bound in a conflict (see [`SqpStatus::LocallyInfeasible`]).
@@ -120,8 +120,8 @@ pub const STAGNATION_ITERATIONS: u32 = 5;
 pub enum SqpStatus {
     /// Feasibility, stationarity and complementarity tolerances all met.
     Solved,
-    /// No further progress possible, and the tolerances loosened by
-    /// `reduced_accuracy_factor` are met.
+    /// No further progress possible, and the stationarity and complementarity tolerances
+    /// loosened by `reduced_accuracy_factor` are met (feasibility loosened by at most 10).
     SolvedReducedAccuracy,
     /// The constraint violation is (locally) as small as it gets and still above the
     /// tolerance. `rows` are the most violated rows, largest first (at most 10); `conflict`
@@ -924,7 +924,7 @@ impl Sqp {
         let st = self.settings.clone();
         let wk = self.work.as_mut().ok_or_else(uninit)?;
         let r = wk.residuals();
-        if meets(&r, &st, st.reduced_accuracy_factor) {
+        if meets_reduced(&r, &st) {
             return Ok(SqpStatus::SolvedReducedAccuracy);
         }
         if r.violation > st.feasibility_tolerance {

@@ -99,6 +99,20 @@ pub(crate) fn residuals(
     Residuals { violation, stationarity, complementarity: complementarity / norm }
 }
 
+/// "Solved to reduced accuracy": stationarity and complementarity loosened by
+/// `reduced_accuracy_factor`, feasibility by at most [`REDUCED_FEASIBILITY_FACTOR`]. A point
+/// that misses its constraints by a thousand times the tolerance is no solution at any
+/// accuracy (an infeasible lander stuck in elastic mode once ended so, violation 0.39 kg).
+pub(crate) fn meets_reduced(r: &Residuals, st: &SqpSettings) -> bool {
+    let loose = st.reduced_accuracy_factor;
+    r.violation <= st.feasibility_tolerance * loose.min(REDUCED_FEASIBILITY_FACTOR)
+        && r.stationarity <= st.stationarity_tolerance * loose
+        && r.complementarity <= st.complementarity_tolerance * loose
+}
+
+/// The most the feasibility tolerance is loosened for "solved to reduced accuracy".
+pub(crate) const REDUCED_FEASIBILITY_FACTOR: f64 = 10.0;
+
 pub(crate) fn meets(r: &Residuals, st: &SqpSettings, factor: f64) -> bool {
     r.violation <= st.feasibility_tolerance * factor
         && r.stationarity <= st.stationarity_tolerance * factor
