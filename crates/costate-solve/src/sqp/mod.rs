@@ -949,14 +949,19 @@ impl Sqp {
             return self.end_with(state, row, status);
         }
         row.step_kind = StepKind::Restart;
-        self.publish(&mut state);
+        self.record(&mut state, row);
+        Ok((state, None))
+    }
+
+    /// Publish the point into `state` and log `row` with the values there.
+    fn record(&mut self, state: &mut SqpState, mut row: IterationRow) {
+        self.publish(state);
         row.objective = state.objective;
         row.residuals = state.residuals;
         row.penalty = state.penalty;
         row.merit = state.merit;
         state.history.push(row.clone());
         state.last_row = Some(row);
-        Ok((state, None))
     }
 
     /// Back to the starting point with block BFGS; `false` when no restart is left.
@@ -990,14 +995,7 @@ impl Sqp {
         row: IterationRow,
         status: SqpStatus,
     ) -> Result<(SqpState, Option<KV>), ArgminError> {
-        self.publish(&mut state);
-        let mut row = row;
-        row.objective = state.objective;
-        row.residuals = state.residuals;
-        row.penalty = state.penalty;
-        row.merit = state.merit;
-        state.history.push(row.clone());
-        state.last_row = Some(row);
+        self.record(&mut state, row);
         Ok((self.finish(state, status), None))
     }
 }
@@ -1349,13 +1347,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             row.step_kind = StepKind::None;
         }
         row.qp_time = self.qp_time - qp_time_before;
-        self.publish(&mut state);
-        row.objective = state.objective;
-        row.residuals = state.residuals;
-        row.penalty = state.penalty;
-        row.merit = state.merit;
-        state.history.push(row.clone());
-        state.last_row = Some(row.clone());
+        self.record(&mut state, row.clone());
         // Stagnation: steps too short to change anything, several times in a row. Stop with
         // the most honest status instead of crawling to the iteration limit.
         let st = self.settings.clone();
