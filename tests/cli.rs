@@ -1,25 +1,10 @@
 //! End-to-end tests of the `costate` binary: exit codes, rendering, formatting, solving and
 //! the expectation runner, on the shipped examples and small files written here.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::path::PathBuf;
 
-fn costate(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_costate"))
-        .args(args)
-        .current_dir(repo())
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("the binary runs")
-}
-
-fn repo() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("../..")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
-}
+mod run;
+use run::{costate, repo, text};
 
 fn examples() -> Vec<String> {
     let mut v: Vec<String> = std::fs::read_dir(repo().join("examples"))

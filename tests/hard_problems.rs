@@ -10,8 +10,8 @@
 //! unweakened: the test requires them to keep missing it, so whoever makes one pass must take
 //! it off the list. Nothing here may be tuned to what our solver happens to produce.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod run;
+use run::{costate, repo, stem, text};
 
 use serde_json::Value;
 
@@ -55,23 +55,6 @@ const NOT_YET_MET: &[(&str, usize)] = &[
     ("two_link_arm_min_time", 200),
 ];
 
-fn repo() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("../..")
-}
-
-fn costate(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_costate"))
-        .args(args)
-        .current_dir(repo())
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("the costate binary runs")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
-}
-
 /// Every fixture with its expected status, sorted by path.
 fn fixtures() -> Vec<(String, Expected)> {
     let mut v: Vec<(String, Expected)> = std::fs::read_dir(repo().join(FIXTURES))
@@ -99,10 +82,6 @@ fn fixtures() -> Vec<(String, Expected)> {
 enum Expected {
     Solved,
     Infeasible,
-}
-
-fn stem(file: &str) -> &str {
-    Path::new(file).file_stem().and_then(|s| s.to_str()).unwrap_or(file)
 }
 
 /// `costate solve FILE --intervals N --format json --quiet`: (status, iterations).

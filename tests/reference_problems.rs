@@ -8,7 +8,9 @@
 //! file may be tuned to what our solver happens to produce. It does not touch the CLI's code.
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+
+mod run;
+use run::{costate, repo, stem, text};
 
 use serde_json::Value;
 
@@ -20,27 +22,6 @@ const FIXTURES: &str = "tests/fixtures/references";
 /// RK4 (Goddard's rocket and catalyst mixing end "solved to reduced accuracy": their singular
 /// arcs keep the stationarity residual between 1e-6 and 1e-3).
 const NOT_YET_SOLVED: &[&str] = &[];
-
-fn stem(file: &str) -> &str {
-    Path::new(file).file_stem().and_then(|s| s.to_str()).unwrap_or(file)
-}
-
-fn repo() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("../..")
-}
-
-fn costate(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_costate"))
-        .args(args)
-        .current_dir(repo())
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("the costate binary runs")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
-}
 
 /// Every fixture, as a path relative to the repository root, sorted.
 fn fixtures() -> Vec<String> {

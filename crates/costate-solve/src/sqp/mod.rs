@@ -945,7 +945,7 @@ impl Sqp {
         mut row: IterationRow,
         status: SqpStatus,
     ) -> Result<(SqpState, Option<KV>), ArgminError> {
-        if matches!(status, SqpStatus::SolvedReducedAccuracy) || !self.restart()? {
+        if !self.restart(&status)? {
             return self.end_with(state, row, status);
         }
         row.step_kind = StepKind::Restart;
@@ -964,8 +964,12 @@ impl Sqp {
         state.last_row = Some(row);
     }
 
-    /// Back to the starting point with block BFGS; `false` when no restart is left.
-    fn restart(&mut self) -> Result<bool, ArgminError> {
+    /// After the dead end `status`: back to the starting point with block BFGS; `false` when
+    /// no restart is left or the status is already an answer (reduced accuracy).
+    fn restart(&mut self, status: &SqpStatus) -> Result<bool, ArgminError> {
+        if matches!(status, SqpStatus::SolvedReducedAccuracy) {
+            return Ok(false);
+        }
         let st = self.settings.clone();
         let wk = self.work.as_mut().ok_or_else(uninit)?;
         let Some((point, lambda, nu)) = wk.restart.take() else {
@@ -1354,7 +1358,7 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
         let wk = self.work.as_ref().ok_or_else(uninit)?;
         if wk.stagnant >= STAGNATION_ITERATIONS && !meets(&state.residuals, &st, 1.0) {
             let status = self.dead_end(&mut row, StallReason::NoProgress)?;
-            if !matches!(status, SqpStatus::SolvedReducedAccuracy) && self.restart()? {
+            if self.restart(&status)? {
                 self.publish(&mut state);
                 if let Some(last) = state.history.last_mut() {
                     last.step_kind = StepKind::Restart;
