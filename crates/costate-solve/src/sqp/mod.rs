@@ -13,9 +13,12 @@
 //! 2. QP `min 1/2 d'Bd + g'd  subject to  cl <= c + J d <= cu,  yl <= y + d <= yu` on the
 //!    stage structure (`model.rs`). If it has no solution or its multipliers explode (a nearly
 //!    inconsistent linearisation), the elastic QP relaxes every row with nonnegative slacks
-//!    weighted by the penalty, so a step always exists; if the violation alone is stationary
-//!    (a proximal QP on the l1 violation returns a tiny step), the point is reported locally
-//!    infeasible, with the rows and bounds that hold the violation up.
+//!    weighted by the penalty, so a step always exists; when the elastic step wins too
+//!    little of the possible reduction of the violation, the penalty is raised and the
+//!    elastic QP solved again in the same iteration (steering, at most `STEERING_RAISES`
+//!    times); if the violation alone is stationary (a proximal QP on the l1 violation
+//!    returns a tiny step), the point is reported locally infeasible, with the rows and
+//!    bounds that hold the violation up.
 //! 3. Penalty update from the QP multipliers (`rho > |lambda|_inf`) and the sufficient model
 //!    decrease rule of J. Nocedal, S. J. Wright, "Numerical Optimization", 2nd ed., 2006,
 //!    eq. (18.36).
