@@ -13,12 +13,9 @@
 //! 2. QP `min 1/2 d'Bd + g'd  subject to  cl <= c + J d <= cu,  yl <= y + d <= yu` on the
 //!    stage structure (`model.rs`). If it has no solution or its multipliers explode (a nearly
 //!    inconsistent linearisation), the elastic QP relaxes every row with nonnegative slacks
-//!    weighted by the penalty, so a step always exists; when the elastic step wins too
-//!    little of the possible reduction of the violation, the penalty is raised and the
-//!    elastic QP solved again in the same iteration (steering, at most `STEERING_RAISES`
-//!    times); if the violation alone is stationary (a proximal QP on the l1 violation
-//!    returns a tiny step), the point is reported locally infeasible, with the rows and
-//!    bounds that hold the violation up.
+//!    weighted by the penalty, so a step always exists; if the violation alone is stationary
+//!    (a proximal QP on the l1 violation returns a tiny step), the point is reported locally
+//!    infeasible, with the rows and bounds that hold the violation up.
 //! 3. Penalty update from the QP multipliers (`rho > |lambda|_inf`) and the sufficient model
 //!    decrease rule of J. Nocedal, S. J. Wright, "Numerical Optimization", 2nd ed., 2006,
 //!    eq. (18.36).
@@ -739,60 +736,45 @@ impl Sqp {
         }
         let violation = l1_violation(&wk.setup, &wk.point.c);
         self.elastic_model()?;
+        let wk = self.work.as_mut().ok_or_else(uninit)?;
+        let weight = wk.penalty;
+        let t = Instant::now();
+        let slacks = wk
+            .model
+            .solve_elastic(ElasticKind::Penalised { weight }, wk.qp_elastic.as_mut())
+            .map_err(ArgminError::msg)?;
+        self.qp_time += t.elapsed();
+        row.qp_solves += 1;
+        row.qp_iterations += wk.model.sol.iterations;
+        row.qp_status = Some(wk.model.sol.status);
+        let usable = wk.model.sol.status.has_solution();
+        if usable {
+            let sol = &wk.model.sol;
+            wk.step.copy_from_slice(&sol.step);
+            wk.step_lambda.copy_from_slice(&sol.row_multipliers);
+            wk.step_nu.copy_from_slice(&sol.bound_multipliers);
+        }
         // Steering (R. H. Byrd, J. Nocedal, R. A. Waltz, "Steering exact penalty methods for
         // nonlinear programming", Optim. Methods Softw. 23, 2008): the elastic step must win a
         // tenth of the reduction of the linearised violation that is possible at all. Only
         // when it wins less than a tenth of the violation itself is that possible reduction
-        // asked of the feasibility QP, which also decides local infeasibility; the weight is
-        // then raised and the elastic QP solved again within the same iteration (at most
-        // `STEERING_RAISES` times), as the steering rule asks, instead of one tenfold raise
-        // per iteration (an infeasible wheel spin-up: 13 iterations to the verdict before, 8
-        // after).
-        let mut possible = None;
-        let mut raises = 0;
-        let usable = loop {
+        // asked of the feasibility QP, which also decides local infeasibility.
+        if violation > 0.0 && (!usable || violation - slacks < 0.1 * violation) {
+            if let Some(conflict) = self.violation_stationary(row)? {
+                return Ok(StepOutcome::Infeasible(conflict));
+            }
             let wk = self.work.as_mut().ok_or_else(uninit)?;
-            let weight = wk.penalty;
-            let t = Instant::now();
-            let slacks = wk
-                .model
-                .solve_elastic(ElasticKind::Penalised { weight }, wk.qp_elastic.as_mut())
-                .map_err(ArgminError::msg)?;
-            self.qp_time += t.elapsed();
-            row.qp_solves += 1;
-            row.qp_iterations += wk.model.sol.iterations;
-            row.qp_status = Some(wk.model.sol.status);
-            let usable = wk.model.sol.status.has_solution();
-            if usable {
-                let sol = &wk.model.sol;
-                wk.step.copy_from_slice(&sol.step);
-                wk.step_lambda.copy_from_slice(&sol.row_multipliers);
-                wk.step_nu.copy_from_slice(&sol.bound_multipliers);
+            let possible = (violation - wk.least_violation).max(0.0);
+            if (!usable || violation - slacks < 0.1 * possible) && wk.penalty < st.penalty_max {
+                wk.penalty = (10.0 * wk.penalty).min(st.penalty_max);
             }
-            if violation <= 0.0 || (usable && violation - slacks >= 0.1 * violation) {
-                break usable;
-            }
-            let possible = match possible {
-                Some(p) => p,
-                None => {
-                    if let Some(conflict) = self.violation_stationary(row)? {
-                        return Ok(StepOutcome::Infeasible(conflict));
-                    }
-                    let wk = self.work.as_ref().ok_or_else(uninit)?;
-                    *possible.insert((violation - wk.least_violation).max(0.0))
-                }
-            };
-            let wk = self.work.as_mut().ok_or_else(uninit)?;
-            let steered = usable && violation - slacks >= 0.1 * possible;
-            if steered || wk.penalty >= st.penalty_max || raises >= STEERING_RAISES {
-                break usable;
-            }
-            wk.penalty = (10.0 * wk.penalty).min(st.penalty_max);
-            raises += 1;
-        };
+        }
+        let wk = self.work.as_mut().ok_or_else(uninit)?;
         if !usable {
             return Ok(StepOutcome::NoStep(row.qp_status.unwrap_or(QpStatus::NumericalFailure)));
         }
+        // The merit function weighs the violation like the elastic QP did.
+        wk.penalty = wk.penalty.max(weight);
         Ok(StepOutcome::Elastic)
     }
 
@@ -1021,9 +1003,6 @@ impl Sqp {
         Ok((self.finish(state, status), None))
     }
 }
-
-/// Most tenfold raises of the penalty weight within one iteration's steering.
-const STEERING_RAISES: u32 = 3;
 
 /// The highest relative eigenvalue floor the recoveries raise the convexification to.
 const HIGHEST_FLOOR: f64 = 1e-2;
