@@ -2,11 +2,11 @@
 //!
 //! Owns the suite over `tests/fixtures/references/*.costate`: every fixture checks clean, every
 //! fixture's `expect` block holds under `costate test`, a finer mesh moves two optima toward
-//! their references, the particle's steering follows the linear tangent law, the LQR
-//! costate estimates follow the Riccati solution and Goddard's rocket also solves on a mesh
-//! twice as fine as its file's. The reference values and their sources live
-//! in the fixtures (beside each expectation) and beside the constants here; nothing in this
-//! file may be tuned to what our solver happens to produce. It does not touch the CLI's code.
+//! their references, the particle's steering follows the linear tangent law, the LQR costate
+//! estimates follow the Riccati solution and Goddard's rocket also solves on a mesh twice as
+//! fine as its file's. The reference values and their sources live in the fixtures (beside
+//! each expectation) and beside the constants here; nothing in this file may be tuned to what
+//! our solver happens to produce. It does not touch the CLI's code.
 
 use std::path::{Path, PathBuf};
 
