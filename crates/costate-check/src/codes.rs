@@ -97,6 +97,9 @@ pub const INVALID_SCALE: Code = error("E0237", "invalid-scale");
 pub const NOT_A_FUNCTION: Code = error("E0238", "not-a-function");
 /// A negative tolerance, or a unit on a percent tolerance.
 pub const INVALID_TOLERANCE: Code = error("E0239", "invalid-tolerance");
+/// Constants and functions whose definitions reach through each other (or whose expressions
+/// nest) deeper than the checker follows.
+pub const DEFINITIONS_TOO_DEEP: Code = error("E0240", "definitions-too-deep");
 
 /// A control that influences neither dynamics, cost nor constraints.
 pub const UNUSED_CONTROL: Code = warning("W0201", "unused-control");
@@ -150,6 +153,7 @@ pub const ALL: &[Code] = &[
     INVALID_SCALE,
     NOT_A_FUNCTION,
     INVALID_TOLERANCE,
+    DEFINITIONS_TOO_DEEP,
     UNUSED_CONTROL,
     NON_SMOOTH,
     UNBOUNDED_END_TIME,

@@ -333,3 +333,61 @@ fn broken_input_never_panics() {
         let _ = a.has_errors();
     }
 }
+
+/// A problem around generated definitions `defs`, with `uses` on the right of `x' = u + ...`.
+fn around(defs: &str, uses: &str) -> String {
+    format!(
+        "problem generated\n{defs}\ntime t [s]: start 0, end 1\nstate {{\n  x [1]: start 0\n}}\n\
+         control {{\n  u [1/s]: in -1 .. 1\n}}\ndynamics {{\n  x' = u + {uses}\n}}\n\
+         cost {{\n  minimize end(x)\n}}\n"
+    )
+}
+
+#[test]
+fn a_long_chain_of_constants_folds_without_nesting() {
+    // Found by fuzzing: 3,000 constants each defined by the next overflowed the stack.
+    let n = 3000;
+    let mut defs = String::from("const {\n");
+    for i in 0..n {
+        defs.push_str(&format!("  c{i} [1/s] = c{} + 1 [1/s]\n", i + 1));
+    }
+    defs.push_str(&format!("  c{n} [1/s] = 0.5\n}}"));
+    let a = clean(&around(&defs, "c0"));
+    let c0 = a.symbols.iter().find(|s| s.name == "c0").expect("c0 is a symbol");
+    assert_eq!(c0.value, Some(n as f64 + 0.5));
+}
+
+#[test]
+fn functions_nested_past_the_limit_are_reported_not_followed() {
+    let n = 3000;
+    let mut defs = String::new();
+    for i in 0..n {
+        defs.push_str(&format!("fn f{i}(a) = f{}(a) + a\n", i + 1));
+    }
+    defs.push_str(&format!("fn f{n}(a) = a"));
+    let a = analyse(&around(&defs, "f0(u)"));
+    let deep: Vec<_> = a.diagnostics.iter().filter(|d| d.code.id == "E0240").collect();
+    assert_eq!(deep.len(), 1, "{:#?}", a.diagnostics);
+    assert!(deep[0].primary.message.contains("more than 64 definitions"), "{:?}", deep[0]);
+}
+
+#[test]
+fn expressions_open_across_definitions_are_bounded() {
+    // Each body nests 1,990 levels; through six functions that passes the 10,000 allowed.
+    let mut defs = String::new();
+    for i in 0..6 {
+        defs.push_str(&format!("fn f{i}(a) = f{}(a){}\n", i + 1, " + a".repeat(1990)));
+    }
+    defs.push_str("fn f6(a) = a");
+    let text = around(&defs, "f0(u)");
+    // Deeper than a test thread's default stack on purpose: the shells give analysis this.
+    let analysis = std::thread::Builder::new()
+        .stack_size(costate_check::STACK_FOR_ANALYSIS)
+        .spawn(move || analyse(&text))
+        .expect("thread starts")
+        .join()
+        .expect("no panic");
+    let deep: Vec<_> = analysis.diagnostics.iter().filter(|d| d.code.id == "E0240").collect();
+    assert_eq!(deep.len(), 1, "{:#?}", analysis.diagnostics);
+    assert!(deep[0].primary.message.contains("10000 levels"), "{:?}", deep[0]);
+}

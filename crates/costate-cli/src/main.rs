@@ -26,6 +26,8 @@ pub mod exit {
     pub const FAILED: u8 = 1;
     /// Usage or IO error.
     pub const USAGE: u8 = 2;
+    /// An internal error (a bug in costate; the message says where).
+    pub const INTERNAL: u8 = 101;
 }
 
 #[derive(Parser)]
@@ -104,8 +106,26 @@ fn main() -> ExitCode {
             return ExitCode::from(code);
         }
     };
+    // The checker, the lowering and the formatter walk expressions by recursion; the input
+    // bounds its depth (parser and checker limits), and this stack holds the deepest it
+    // allows with room to spare. Only the pages used are ever committed.
+    let worker = std::thread::Builder::new()
+        .name("costate".into())
+        .stack_size(costate_check::STACK_FOR_ANALYSIS)
+        .spawn(move || run_command(cli));
+    match worker.map(|w| w.join()) {
+        Ok(Ok(code)) => ExitCode::from(code),
+        Ok(Err(_)) => ExitCode::from(exit::INTERNAL),
+        Err(e) => {
+            eprintln!("error: cannot start: {e}");
+            ExitCode::from(exit::INTERNAL)
+        }
+    }
+}
+
+fn run_command(cli: Cli) -> u8 {
     let color = use_color(std::io::stdout().is_terminal());
-    let code = match cli.command {
+    match cli.command {
         Command::Check { files, format } => check_cmd::run(&files, format, color),
         Command::Fmt { files, check } => fmt_cmd::run(&files, check),
         Command::Solve { file, intervals, out, format, quiet, warm } => {
@@ -126,6 +146,5 @@ fn main() -> ExitCode {
                 exit::USAGE
             }
         },
-    };
-    ExitCode::from(code)
+    }
 }

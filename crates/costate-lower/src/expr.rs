@@ -25,7 +25,7 @@ use crate::codes;
 
 /// Deepest nesting of user-function calls the lowering inlines. The checker rejects recursion,
 /// so only a checker bug (or a hand-made analysis) reaches this; it keeps the stack bounded.
-pub const MAX_CALL_DEPTH: usize = 256;
+pub const MAX_CALL_DEPTH: usize = 64;
 
 /// Which inputs names stand for.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]

@@ -44,6 +44,8 @@ pub fn run_stdio() -> Result<(), String> {
     let _ = tracing_subscriber::fmt().with_writer(std::io::stderr).with_ansi(false).try_init();
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .enable_all()
+        // Analysis runs on the runtime's blocking threads and recurses over expressions.
+        .thread_stack_size(costate_check::STACK_FOR_ANALYSIS)
         .build()
         .map_err(|e| format!("cannot start the language server: {e}"))?;
     runtime.block_on(serve(tokio::io::stdin(), tokio::io::stdout()));

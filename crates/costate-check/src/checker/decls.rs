@@ -2,7 +2,7 @@
 //! folding on demand, and the attributes of the independent variable, states, controls and
 //! parameters.
 
-use std::collections::HashMap;
+use std::collections::{HashMap, HashSet};
 
 use costate_syntax::ast::{
     Attr, AttrKind, AttrValue, Expr, ExprKind, Ident, Item, Range, UnitExpr, VarDecl,
@@ -306,12 +306,68 @@ impl<'a> Checker<'a> {
         }
     }
 
+    /// Folds every constant, each after the constants its value names (depth-first, with an
+    /// explicit stack), so that a long chain `a = b + 1, b = c + 1, ...` never nests one
+    /// folding inside another.
     pub(super) fn check_consts(&mut self) {
         let mut ids: Vec<SymbolId> = self.const_decls.keys().copied().collect();
         ids.sort();
-        for id in ids {
+        let deps: HashMap<SymbolId, Vec<SymbolId>> =
+            ids.iter().map(|&id| (id, self.const_dependencies(id))).collect();
+        let mut visited: HashSet<SymbolId> = HashSet::new();
+        // Constants on a cycle are left to the final pass in declaration order, which reports
+        // the cycle at the first of them.
+        let mut cyclic: HashSet<SymbolId> = HashSet::new();
+        let mut order = Vec::with_capacity(ids.len());
+        for &root in &ids {
+            if !visited.insert(root) {
+                continue;
+            }
+            let mut stack: Vec<(SymbolId, usize)> = vec![(root, 0)];
+            let mut on_stack: HashSet<SymbolId> = HashSet::from([root]);
+            while let Some((id, next)) = stack.last_mut() {
+                let id = *id;
+                match deps[&id].get(*next) {
+                    Some(&dep) => {
+                        *next += 1;
+                        if visited.insert(dep) {
+                            stack.push((dep, 0));
+                            on_stack.insert(dep);
+                        } else if on_stack.contains(&dep) {
+                            let at = stack.iter().position(|&(s, _)| s == dep).unwrap_or(0);
+                            cyclic.extend(stack[at..].iter().map(|&(s, _)| s));
+                        }
+                    }
+                    None => {
+                        if !cyclic.contains(&id) {
+                            order.push(id);
+                        }
+                        on_stack.remove(&id);
+                        stack.pop();
+                    }
+                }
+            }
+        }
+        for id in order.into_iter().chain(ids) {
             self.const_info(id, None);
         }
+    }
+
+    /// The constants named directly in a constant's value.
+    fn const_dependencies(&self, id: SymbolId) -> Vec<SymbolId> {
+        let mut out = Vec::new();
+        if let Some(decl) = self.const_decls.get(&id) {
+            decl.value.walk(&mut |e: &Expr| {
+                if let ExprKind::Name(n) = &e.kind {
+                    if let Some(&g) = self.globals.get(&n.name) {
+                        if self.const_decls.contains_key(&g) && !out.contains(&g) {
+                            out.push(g);
+                        }
+                    }
+                }
+            });
+        }
+        out
     }
 
     /// The type and SI value of a constant, checking its declaration on first use. `use_span`
@@ -343,7 +399,20 @@ impl<'a> Checker<'a> {
             None => return (Ty::Unknown, None),
         }
         let Some(decl) = self.const_decls.get(&id).copied() else { return (Ty::Unknown, None) };
+        if self.nesting >= super::expr::MAX_DEFINITION_NESTING {
+            let at = use_span.unwrap_or(self.sym(id).name_span);
+            self.too_deep(
+                at,
+                format!(
+                    "more than {} definitions open when `{}` is needed",
+                    super::expr::MAX_DEFINITION_NESTING,
+                    self.sym(id).name
+                ),
+            );
+            return (Ty::Unknown, None);
+        }
         self.const_state.insert(id, ConstState::InProgress);
+        self.nesting += 1;
         // A constant may be first needed while a function body is expanded for one call; its
         // own findings must be recorded normally all the same.
         let saved_recording = std::mem::replace(&mut self.recording, true);
@@ -387,6 +456,7 @@ impl<'a> Checker<'a> {
         }
         self.const_types.insert(id, ty);
         self.const_state.insert(id, ConstState::Done);
+        self.nesting -= 1;
         (ty, info.value)
     }
 

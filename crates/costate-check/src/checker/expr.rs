@@ -21,6 +21,15 @@ use crate::units::{self, Dimension, Ratio};
 /// make checking exponential; past it calls are left unchecked.
 const EXPANSION_BUDGET: usize = 20_000;
 
+/// Most definitions open at once: a constant whose value calls a function whose body reads
+/// another constant... The checker follows definitions by recursion, so the input must not
+/// choose its depth; chains of constants alone are folded in dependency order and never nest.
+pub(crate) const MAX_DEFINITION_NESTING: usize = 64;
+/// Most expression levels open at once, summed over the open definitions. One entry nests at
+/// most about 2,000 levels (the parser's limits), so this leaves room for a few such entries
+/// reached through one another.
+pub(crate) const MAX_EXPRESSION_DEPTH: usize = 10_000;
+
 /// Where an expression stands; decides which names and built-ins are meaningful.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub(crate) enum Place {
@@ -274,9 +283,38 @@ impl<'a> Checker<'a> {
 
     /// Checks `e` at the place `cx` and returns what it found. Records resolutions and types.
     pub(crate) fn expr(&mut self, e: &'a Expr, cx: &Cx) -> Info {
+        if self.expr_depth >= MAX_EXPRESSION_DEPTH {
+            self.too_deep(
+                e.span,
+                format!("more than {MAX_EXPRESSION_DEPTH} levels of expressions open here"),
+            );
+            return Info::poisoned();
+        }
+        self.expr_depth += 1;
         let info = self.expr_inner(e, cx);
+        self.expr_depth -= 1;
         self.record_type(e.span, info.ty);
         info
+    }
+
+    /// Reports (once per file) a definition or expression the checker does not follow
+    /// further, so that the input cannot exhaust the stack.
+    pub(crate) fn too_deep(&mut self, span: Span, label: String) {
+        if std::mem::replace(&mut self.too_deep_reported, true) {
+            return;
+        }
+        let d = Diagnostic::new(
+            codes::DEFINITIONS_TOO_DEEP,
+            "definitions reach through one another too deeply to check",
+            span,
+            label,
+        )
+        .with_help(
+            "constants and functions defined through long chains of others: give some of them \
+             plain values, or write the expressions out",
+        );
+        // Kept even when raised inside a call expansion (which records only unit findings).
+        self.deferred.push(d);
     }
 
     fn expr_inner(&mut self, e: &'a Expr, cx: &Cx) -> Info {
@@ -857,6 +895,13 @@ impl<'a> Checker<'a> {
         else {
             return Info { ty: Ty::Unknown, value: None, constant, trajectory };
         };
+        if self.nesting >= MAX_DEFINITION_NESTING {
+            self.too_deep(
+                e.span,
+                format!("more than {MAX_DEFINITION_NESTING} definitions open at this call"),
+            );
+            return Info::poisoned();
+        }
         self.expansions += 1;
         let env: HashMap<SymbolId, Info> =
             params.iter().copied().zip(infos.iter().copied()).collect();
@@ -864,7 +909,9 @@ impl<'a> Checker<'a> {
         let top = self.recording;
         self.recording = false;
         let saved = std::mem::take(&mut self.a.diagnostics);
+        self.nesting += 1;
         let r = self.expr(body, &inner);
+        self.nesting -= 1;
         let found = std::mem::replace(&mut self.a.diagnostics, saved);
         self.recording = top;
         for d in found {

@@ -49,6 +49,11 @@ pub(crate) struct Checker<'a> {
     /// only unit findings are kept (re-worded at the call).
     recording: bool,
     expansions: usize,
+    /// Definitions (constants being folded, function bodies being expanded) open at this
+    /// moment, and expressions being checked, across all of them: both bound the stack.
+    nesting: usize,
+    expr_depth: usize,
+    too_deep_reported: bool,
     /// Diagnostics raised while checking a constant on demand from inside a call expansion.
     deferred: Vec<Diagnostic>,
     /// (code id, primary span) of every diagnostic recorded, to drop repeats from expansions.
@@ -79,6 +84,9 @@ pub fn check(file: &File) -> Analysis {
         calls: HashMap::new(),
         recording: true,
         expansions: 0,
+        nesting: 0,
+        expr_depth: 0,
+        too_deep_reported: false,
         deferred: Vec::new(),
         seen: HashSet::new(),
         used_controls: HashSet::new(),
