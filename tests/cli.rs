@@ -78,6 +78,30 @@ fn a_missing_file_is_a_one_line_usage_error() {
     assert_eq!(out.status.code(), Some(2));
     let stderr = text(&out.stderr);
     assert_eq!(stderr.trim(), "error: cannot read `no/such/file.costate`: no such file or folder");
+    // The summary never reads as a clean check of a file it could not read.
+    check_summary_of_unreadable(&["check", "no/such/file.costate"]);
+}
+
+fn check_summary_of_unreadable(args: &[&str]) {
+    let out = costate(args);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(2), "{stdout}");
+    assert_eq!(stdout.trim(), "0 errors, 0 warnings in 0 files; 1 file could not be read");
+    let mut json_args = args.to_vec();
+    json_args.extend(["--format", "json"]);
+    let out = costate(&json_args);
+    let doc: serde_json::Value = serde_json::from_str(&text(&out.stdout)).unwrap();
+    assert_eq!(doc["unreadable"], 1, "{doc}");
+    assert!(doc["files"][0]["error"].as_str().unwrap().starts_with("cannot read"), "{doc}");
+}
+
+#[test]
+fn a_file_that_is_not_utf8_is_not_reported_as_clean() {
+    let dir = temp_dir("utf8");
+    let file = dir.join("bytes.costate");
+    std::fs::write(&file, [0xff, 0xfe, 0x00, 0x41]).unwrap();
+    check_summary_of_unreadable(&["check", file.to_str().unwrap()]);
+    let _ = std::fs::remove_dir_all(&dir);
 }
 
 #[test]
@@ -138,6 +162,45 @@ fn solve_writes_the_solution_files_and_a_summary() {
     let csv = std::fs::read_to_string(dir.join("crane_transfer.csv")).unwrap();
     assert!(csv.starts_with("t [s],x [m],v [m/s],theta [rad],omega [rad/s],a [m/s^2]\n"), "{csv}");
     assert_eq!(csv.lines().count(), 62);
+}
+
+#[test]
+fn a_failed_solve_keeps_the_last_good_solution_files() {
+    let dir = temp_dir("keep");
+    let file = dir.join("hop.costate");
+    let good = "problem hop\ntime t [s]: start 0, end 2\nstate {\n  x [m]: start 0, end 1\n  v [m/s]: start 0, end 0\n}\ncontrol { a [m/s^2]: in -1 .. 1 }\ndynamics {\n  x' = v\n  v' = a\n}\ncost { minimize integral(a^2) }\nsolve { intervals = 20 }\n";
+    std::fs::write(&file, good).unwrap();
+    let args = ["solve", file.to_str().unwrap(), "--quiet", "--out", dir.to_str().unwrap()];
+    let out = costate(&args);
+    assert_eq!(out.status.code(), Some(0), "{}{}", text(&out.stdout), text(&out.stderr));
+    let (json_path, csv_path) = (dir.join("hop.solution.json"), dir.join("hop.csv"));
+    let before = (std::fs::read(&json_path).unwrap(), std::fs::read(&csv_path).unwrap());
+    // 5 m in 2 s from rest with at most 1 m/s^2 cannot be done (at most 1 m).
+    std::fs::write(&file, good.replace("end 1\n", "end 5\n")).unwrap();
+    let out = costate(&args);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(1), "{stdout}{}", text(&out.stderr));
+    assert!(stdout.contains("locally infeasible"), "{stdout}");
+    assert!(stdout.contains("hop.failed.json"), "{stdout}");
+    assert!(stdout.contains("kept"), "{stdout}");
+    assert_eq!(std::fs::read(&json_path).unwrap(), before.0, "the solution file was replaced");
+    assert_eq!(std::fs::read(&csv_path).unwrap(), before.1, "the table was replaced");
+    let failed: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("hop.failed.json")).unwrap())
+            .unwrap();
+    assert_eq!(failed["solved"], false);
+    assert_eq!(failed["status"], "locally infeasible");
+    let findings = failed["findings"].as_array().unwrap();
+    assert!(!findings.is_empty(), "the record says why");
+    assert!(findings.iter().all(|f| f["span"]["from"]["line"].as_u64().is_some()), "{findings:?}");
+    // Nothing of the writing is left behind.
+    let hidden: Vec<_> = std::fs::read_dir(&dir)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().starts_with('.'))
+        .collect();
+    assert!(hidden.is_empty(), "{hidden:?}");
+    let _ = std::fs::remove_dir_all(&dir);
 }
 
 #[test]

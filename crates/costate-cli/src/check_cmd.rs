@@ -18,7 +18,7 @@ pub fn diagnostics(source: &str) -> Vec<Diagnostic> {
 }
 
 pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
-    let (mut errors, mut warnings, mut io_failed) = (0usize, 0usize, false);
+    let (mut errors, mut warnings, mut unreadable) = (0usize, 0usize, 0usize);
     let mut json_files = Vec::new();
     for path in paths {
         let shown = path.display().to_string();
@@ -26,7 +26,10 @@ pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
             Ok(s) => s,
             Err(e) => {
                 eprintln!("error: {e}");
-                io_failed = true;
+                unreadable += 1;
+                if format == Format::Json {
+                    json_files.push(json!({ "path": shown, "error": e.to_string() }));
+                }
                 continue;
             }
         };
@@ -50,11 +53,17 @@ pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
     }
     match format {
         Format::Text => {
-            let checked = paths.len();
+            let checked = paths.len() - unreadable;
             let plural =
                 |n: usize, word: &str| format!("{n} {word}{}", if n == 1 { "" } else { "s" });
+            // A file that could not be read was not checked: the summary never reads clean.
+            let not_read = if unreadable > 0 {
+                format!("; {} could not be read", plural(unreadable, "file"))
+            } else {
+                String::new()
+            };
             println!(
-                "{}, {} in {}",
+                "{}, {} in {}{not_read}",
                 plural(errors, "error"),
                 plural(warnings, "warning"),
                 plural(checked, "file")
@@ -62,13 +71,16 @@ pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
         }
         Format::Json => println!(
             "{}",
-            serde_json::to_string_pretty(
-                &json!({ "files": json_files, "errors": errors, "warnings": warnings })
-            )
+            serde_json::to_string_pretty(&json!({
+                "files": json_files,
+                "errors": errors,
+                "warnings": warnings,
+                "unreadable": unreadable
+            }))
             .expect("JSON values serialise")
         ),
     }
-    if io_failed {
+    if unreadable > 0 {
         exit::USAGE
     } else if errors > 0 {
         exit::FAILED

@@ -1,12 +1,12 @@
 //! Reading problem files and writing outputs atomically.
 //!
-//! Outputs are written to a temporary file in the destination folder, flushed to disk and then
-//! renamed over the destination, so a crash or a full disk never leaves a half-written file in
-//! place of what the user had.
+//! Outputs are written as the language server writes them (`costate_lsp::io`): a temporary
+//! file in the destination folder, flushed to disk and then renamed over the destination, so a
+//! crash or a full disk never leaves a half-written file in place of what the user had.
 
 use std::fs;
-use std::io::{self, Write};
-use std::path::{Path, PathBuf};
+use std::io;
+use std::path::Path;
 
 /// An IO problem, worded for a one-line error message.
 #[derive(Debug)]
@@ -31,23 +31,12 @@ pub fn read_source(path: &Path) -> Result<String, FileError> {
 
 /// Replace `path` with `contents` atomically.
 pub fn write_atomic(path: &Path, contents: &[u8]) -> Result<(), FileError> {
-    let dir = match path.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-    let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
-    let result = (|| -> io::Result<()> {
-        let mut file = fs::File::create(&tmp)?;
-        file.write_all(contents)?;
-        file.sync_all()?;
-        drop(file);
-        fs::rename(&tmp, path)
-    })();
-    result.map_err(|e| {
-        let _ = fs::remove_file(&tmp);
-        FileError(describe(path, "cannot write", &e))
-    })
+    costate_lsp::io::write_atomic(path, contents).map_err(FileError)
+}
+
+/// Write every file or none (a solution and its table land together).
+pub fn write_all_or_none(files: &[(&Path, &[u8])]) -> Result<(), FileError> {
+    costate_lsp::io::write_all_or_none(files).map_err(FileError)
 }
 
 pub fn create_dir(path: &Path) -> Result<(), FileError> {
@@ -55,13 +44,7 @@ pub fn create_dir(path: &Path) -> Result<(), FileError> {
 }
 
 fn describe(path: &Path, what: &str, e: &io::Error) -> String {
-    let reason = match e.kind() {
-        io::ErrorKind::NotFound => "no such file or folder".to_string(),
-        io::ErrorKind::PermissionDenied => "permission denied".to_string(),
-        io::ErrorKind::IsADirectory => "it is a folder".to_string(),
-        _ => e.to_string(),
-    };
-    format!("{what} `{}`: {reason}", path.display())
+    costate_lsp::io::describe(path, what, e)
 }
 
 #[cfg(test)]

@@ -4,7 +4,7 @@
 
 use ariadne::{Config, IndexType, Label, Report, ReportKind, Source};
 use costate_syntax::{Diagnostic, LineIndex, Severity};
-use serde_json::{json, Value};
+use serde_json::Value;
 
 /// Render one diagnostic as ariadne does, into a string.
 pub fn terminal(path: &str, source: &str, diagnostic: &Diagnostic, color: bool) -> String {
@@ -37,25 +37,7 @@ pub fn terminal(path: &str, source: &str, diagnostic: &Diagnostic, color: bool) 
     String::from_utf8_lossy(&out).into_owned()
 }
 
-/// One diagnostic as JSON: byte span plus 1-based line and column (columns count characters).
+/// One diagnostic as JSON (the same layout as the findings of a failed solve's record).
 pub fn json(source: &str, index: &LineIndex, diagnostic: &Diagnostic) -> Value {
-    let position = |offset: usize| {
-        let offset = offset.min(source.len());
-        let line = index.line_of(offset);
-        let start = index.line_start(line);
-        let column = source.get(start..offset).map(|s| s.chars().count()).unwrap_or(0);
-        json!({ "line": line + 1, "column": column + 1 })
-    };
-    let span = |s: costate_syntax::Span| json!({ "start": s.start, "end": s.end, "from": position(s.start), "to": position(s.end) });
-    json!({
-        "code": diagnostic.code.id,
-        "name": diagnostic.code.name,
-        "severity": match diagnostic.severity { Severity::Error => "error", Severity::Warning => "warning" },
-        "message": diagnostic.message,
-        "span": span(diagnostic.primary.span),
-        "label": diagnostic.primary.message,
-        "labels": diagnostic.labels.iter().map(|l| json!({ "span": span(l.span), "message": l.message })).collect::<Vec<_>>(),
-        "notes": diagnostic.notes,
-        "help": diagnostic.help,
-    })
+    costate_driver::report::diagnostic_json(source, index, diagnostic)
 }

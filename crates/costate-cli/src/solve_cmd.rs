@@ -55,28 +55,55 @@ pub fn run(args: &SolveArgs, color: bool) -> u8 {
         }
     };
     let intervals = costate_driver::ocp_settings(&loaded, &args.overrides).intervals;
-    for d in costate_driver::findings(&loaded, &solution) {
-        eprint!("{}", render::terminal(&loaded.path, &loaded.source, &d, color));
+    let findings = costate_driver::findings(&loaded, &solution);
+    for d in &findings {
+        eprint!("{}", render::terminal(&loaded.path, &loaded.source, d, color));
     }
-    let name = &loaded.lowered.source_map.problem_name;
-    let json_path = args.out.join(format!("{name}.solution.json"));
-    let csv_path = args.out.join(format!("{name}.csv"));
-    let document = report::solution_json(&loaded, &solution, intervals);
-    let written = files::create_dir(&args.out)
-        .and_then(|_| {
-            let text = serde_json::to_string_pretty(&document).expect("JSON values serialise");
-            files::write_atomic(&json_path, text.as_bytes())
-        })
-        .and_then(|_| {
-            files::write_atomic(&csv_path, report::solution_csv(&loaded, &solution).as_bytes())
+    let names = report::output_names(&loaded.lowered.source_map.problem_name);
+    let solved = report::is_solved(&solution.status);
+    // Only a solved status replaces the solution files; any other ending is recorded beside
+    // them, so the last good result is never overwritten by a failed attempt.
+    let (document, shown, written) = if solved {
+        let json_path = args.out.join(&names.solution);
+        let csv_path = args.out.join(&names.table);
+        let document = report::solution_json(&loaded, &solution, intervals);
+        let text = serde_json::to_string_pretty(&document).expect("JSON values serialise");
+        let csv = report::solution_csv(&loaded, &solution);
+        let written = files::create_dir(&args.out).and_then(|_| {
+            files::write_all_or_none(&[
+                (json_path.as_path(), text.as_bytes()),
+                (csv_path.as_path(), csv.as_bytes()),
+            ])
         });
+        (document, vec![json_path.display().to_string(), csv_path.display().to_string()], written)
+    } else {
+        let failed_path = args.out.join(&names.failed);
+        let document = report::failed_json(&loaded, &solution, intervals, &findings);
+        let text = serde_json::to_string_pretty(&document).expect("JSON values serialise");
+        let written = files::create_dir(&args.out)
+            .and_then(|_| files::write_atomic(&failed_path, text.as_bytes()));
+        (document, vec![failed_path.display().to_string()], written)
+    };
     if let Err(e) = written {
         eprintln!("error: {e}");
         return exit::USAGE;
     }
-    let shown = [json_path.display().to_string(), csv_path.display().to_string()];
     match args.format {
-        Format::Text => println!("{}", report::summary(&loaded, &solution, intervals, &shown)),
+        Format::Text => {
+            println!("{}", report::summary(&loaded, &solution, intervals, &shown));
+            let earlier: Vec<String> = [&names.solution, &names.table]
+                .iter()
+                .map(|n| args.out.join(n))
+                .filter(|p| !solved && p.exists())
+                .map(|p| p.display().to_string())
+                .collect();
+            if !earlier.is_empty() {
+                println!(
+                    "kept        {} (an unsolved result replaces nothing)",
+                    earlier.join(", ")
+                );
+            }
+        }
         Format::Json => {
             let mut summary = document;
             if let Value::Object(map) = &mut summary {
@@ -85,7 +112,7 @@ pub fn run(args: &SolveArgs, color: bool) -> u8 {
             println!("{}", serde_json::to_string_pretty(&summary).expect("JSON values serialise"));
         }
     }
-    if report::is_solved(&solution.status) {
+    if solved {
         exit::OK
     } else {
         exit::FAILED

@@ -5,6 +5,7 @@
 use costate_lower::{SourceMap, VarSource};
 use costate_solve::transcribe::{OcpSolution, OcpStatus};
 use costate_solve::StallReason;
+use costate_syntax::{Diagnostic, LineIndex, Severity};
 use serde_json::{json, Value};
 
 use crate::Loaded;
@@ -201,6 +202,62 @@ pub fn solution_json(loaded: &Loaded, solution: &OcpSolution, intervals: usize) 
             "qp_solves": r.qp_solves,
             "qp_iterations": r.qp_iterations,
         })).collect::<Vec<_>>(),
+    })
+}
+
+/// The files a solve of problem `NAME` leaves in its output folder.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct OutputNames {
+    /// `NAME.solution.json` and `NAME.csv`: written together, and only for a solved status.
+    pub solution: String,
+    pub table: String,
+    /// `NAME.failed.json`: the record of a solve that did not succeed (last iterate, status,
+    /// findings). It never replaces the solution files, so an earlier good result stays.
+    pub failed: String,
+}
+
+pub fn output_names(problem: &str) -> OutputNames {
+    OutputNames {
+        solution: format!("{problem}.solution.json"),
+        table: format!("{problem}.csv"),
+        failed: format!("{problem}.failed.json"),
+    }
+}
+
+/// The record of a failed solve: the solution document of the iterate it stopped at
+/// (`solved: false`) plus the findings that explain the ending, on their source lines.
+pub fn failed_json(
+    loaded: &Loaded,
+    solution: &OcpSolution,
+    intervals: usize,
+    findings: &[Diagnostic],
+) -> Value {
+    let mut doc = solution_json(loaded, solution, intervals);
+    let index = LineIndex::new(&loaded.source);
+    doc["findings"] = findings.iter().map(|d| diagnostic_json(&loaded.source, &index, d)).collect();
+    doc
+}
+
+/// One diagnostic as JSON: byte span plus 1-based line and column (columns count characters).
+pub fn diagnostic_json(source: &str, index: &LineIndex, diagnostic: &Diagnostic) -> Value {
+    let position = |offset: usize| {
+        let offset = offset.min(source.len());
+        let line = index.line_of(offset);
+        let start = index.line_start(line);
+        let column = source.get(start..offset).map(|s| s.chars().count()).unwrap_or(0);
+        json!({ "line": line + 1, "column": column + 1 })
+    };
+    let span = |s: costate_syntax::Span| json!({ "start": s.start, "end": s.end, "from": position(s.start), "to": position(s.end) });
+    json!({
+        "code": diagnostic.code.id,
+        "name": diagnostic.code.name,
+        "severity": match diagnostic.severity { Severity::Error => "error", Severity::Warning => "warning" },
+        "message": diagnostic.message,
+        "span": span(diagnostic.primary.span),
+        "label": diagnostic.primary.message,
+        "labels": diagnostic.labels.iter().map(|l| json!({ "span": span(l.span), "message": l.message })).collect::<Vec<_>>(),
+        "notes": diagnostic.notes,
+        "help": diagnostic.help,
     })
 }
 

@@ -110,8 +110,12 @@ fn describe(analysis: &Analysis, symbol: &Symbol, solution: Option<&SolveSummary
             SymbolKind::State | SymbolKind::Control | SymbolKind::Param | SymbolKind::Time
         ) {
             let u = symbol.unit.as_ref().map(|u| format!(" {}", u.display)).unwrap_or_default();
+            let what = match solution {
+                Some(s) if !s.solved => format!("last iterate ({}, not a solution)", s.status),
+                _ => "solution".to_string(),
+            };
             let mut line = format!(
-                "solution: start {}{u} · end {}{u} · min {}{u} · max {}{u}",
+                "{what}: start {}{u} · end {}{u} · min {}{u} · max {}{u}",
                 number(result.start),
                 number(result.end),
                 number(result.min),
@@ -187,12 +191,12 @@ fn constraint_label(
         costate_check::ConstraintKind::Boundary => "boundary constraint",
     };
     let mut markdown = format!("**{kind}** `{}`", analysis.text(word));
-    if let Some(active) = solution.and_then(|s| s.constraints_active.get(analysis.text(word))) {
-        markdown.push_str(if *active {
-            "\n\nsolution: active (nonzero multiplier)"
-        } else {
-            "\n\nsolution: inactive"
-        });
+    if let Some(s) = solution {
+        if let Some(active) = s.constraints_active.get(analysis.text(word)) {
+            let what = if s.solved { "solution" } else { "last iterate (not solved)" };
+            let state = if *active { "active (nonzero multiplier)" } else { "inactive" };
+            markdown.push_str(&format!("\n\n{what}: {state}"));
+        }
     }
     Some(markdown)
 }

@@ -34,10 +34,12 @@ pub fn inlay_hints(analysis: &Analysis, solution: &SolveSummary, range: Span) ->
         }
         let Some(result) = solution.variables.get(&symbol.name) else { continue };
         let unit = symbol.unit.as_ref().map(|u| format!(" {}", u.display)).unwrap_or_default();
+        // A failed solve's last iterate is no result: say so beside every value.
+        let caveat = if solution.solved { "" } else { " (not solved)" };
         let label = if symbol.kind == SymbolKind::Param {
-            format!(" = {}{unit}", number(result.end))
+            format!(" = {}{unit}{caveat}", number(result.end))
         } else {
-            format!(" → {}{unit}", number(result.end))
+            format!(" → {}{unit}{caveat}", number(result.end))
         };
         out.push(InlayHint { offset: symbol.name_span.end, label });
     }

@@ -14,7 +14,7 @@
 mod config;
 mod convert;
 mod documents;
-mod io;
+pub mod io;
 mod server;
 mod solving;
 mod summary;

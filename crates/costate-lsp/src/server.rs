@@ -230,11 +230,18 @@ impl Backend {
             Outcome::Done(solved) => solved,
         };
         if let Some(dir) = path.as_ref().and_then(|p| p.parent()) {
-            let json_path = dir.join(format!("{}.solution.json", solved.problem));
-            let csv_path = dir.join(format!("{}.csv", solved.problem));
+            // As the CLI does: a solved status replaces the solution and its table together;
+            // any other ending goes to `NAME.failed.json` and leaves the last good result.
+            let names = costate_driver::report::output_names(&solved.problem);
             let json = serde_json::to_string_pretty(&solved.document).unwrap_or_default();
-            let written = crate::io::write_atomic(&json_path, json.as_bytes())
-                .and_then(|_| crate::io::write_atomic(&csv_path, solved.csv.as_bytes()));
+            let written = if solved.document["solved"] == true {
+                crate::io::write_all_or_none(&[
+                    (dir.join(&names.solution).as_path(), json.as_bytes()),
+                    (dir.join(&names.table).as_path(), solved.csv.as_bytes()),
+                ])
+            } else {
+                crate::io::write_atomic(&dir.join(&names.failed), json.as_bytes())
+            };
             if let Err(e) = written {
                 self.client.show_message(MessageType::WARNING, format!("costate: {e}")).await;
             }

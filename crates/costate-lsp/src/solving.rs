@@ -24,9 +24,11 @@ pub enum Outcome {
 }
 
 pub struct Solved {
-    /// `problem NAME`: the files are `NAME.solution.json` and `NAME.csv`.
+    /// `problem NAME`: the files are `NAME.solution.json` and `NAME.csv` when solved,
+    /// `NAME.failed.json` otherwise.
     pub problem: String,
-    /// The solution document (docs/solution-format.md), as the CLI writes it.
+    /// The solution document (docs/solution-format.md), as the CLI writes it (with the
+    /// findings when the solve failed).
     pub document: Value,
     pub csv: String,
     /// Why the solve failed, on the source lines (empty when solved).
@@ -61,10 +63,16 @@ pub fn solve(
         return Outcome::Cancelled;
     }
     let intervals = costate_driver::ocp_settings(&loaded, overrides).intervals;
+    let findings = costate_driver::findings(&loaded, &solution);
+    let document = if report::is_solved(&solution.status) {
+        report::solution_json(&loaded, &solution, intervals)
+    } else {
+        report::failed_json(&loaded, &solution, intervals, &findings)
+    };
     Outcome::Done(Box::new(Solved {
         problem: loaded.lowered.source_map.problem_name.clone(),
-        document: report::solution_json(&loaded, &solution, intervals),
+        document,
         csv: report::solution_csv(&loaded, &solution),
-        findings: costate_driver::findings(&loaded, &solution),
+        findings,
     }))
 }

@@ -620,6 +620,40 @@ async fn hover_after_a_solve_says_which_bounds_and_constraints_are_active() {
         expect![[r#"
         **path constraint** `speed`
 
-        solution: active (nonzero multiplier)"#]],
+        last iterate (not solved): active (nonzero multiplier)"#]],
     );
+}
+
+#[tokio::test]
+async fn a_failed_solve_never_replaces_the_last_good_solution_files() {
+    let (mut client, dir, uri) = on_disk("keep", HOP, json!(null)).await;
+    client.save(&uri).await;
+    check(client.solve_finished().await, expect!["solved"]);
+    let (json_path, csv_path) = (dir.join("hop.solution.json"), dir.join("hop.csv"));
+    let good = (std::fs::read(&json_path).unwrap(), std::fs::read(&csv_path).unwrap());
+    // The whole text replaced by one whose speed limit makes the move impossible in time.
+    let infeasible = HOP
+        .replace("u [m/s^2]: in -10 .. 10", "u [m/s^2]: in -5 .. 5")
+        .replace("solve {", "path {\n  speed: v <= 1.3\n}\n\nsolve {");
+    let all = json!([{ "text": infeasible }]);
+    client.change(&uri, 2, all).await;
+    client.save(&uri).await;
+    check(client.solve_finished().await, expect!["locally infeasible"]);
+    assert_eq!(std::fs::read(&json_path).unwrap(), good.0, "solution file replaced");
+    assert_eq!(std::fs::read(&csv_path).unwrap(), good.1, "table replaced");
+    let failed: Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("hop.failed.json")).unwrap())
+            .unwrap();
+    assert_eq!(failed["status"], "locally infeasible");
+    assert_eq!(failed["solved"], false);
+    assert!(failed["findings"].is_array(), "{}", failed["findings"]);
+    // The editor shows the last iterate as what it is.
+    let range = json!({
+        "textDocument": { "uri": uri },
+        "range": { "start": at(0, 0), "end": at(40, 0) }
+    });
+    let hints = client.request("textDocument/inlayHint", range).await;
+    let labels: Vec<&str> =
+        hints.as_array().unwrap().iter().map(|h| h["label"].as_str().unwrap()).collect();
+    assert!(!labels.is_empty() && labels.iter().all(|l| l.ends_with("(not solved)")), "{labels:?}");
 }
