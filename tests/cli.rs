@@ -290,3 +290,33 @@ fn a_problem_too_large_for_memory_is_refused_with_its_size() {
     assert!(stderr.contains("memory"), "names the memory limit: {stderr}");
     assert!(!stderr.contains("panicked"), "{stderr}");
 }
+
+#[test]
+fn extreme_numbers_end_with_a_clear_status_never_an_internal_error_or_a_false_solved() {
+    // Found by fuzzing the crane example: each of these ended in an internal error (exit 2)
+    // or in "solved" with the end missed by 12 m or 1e23 m.
+    let crane = std::fs::read_to_string(repo().join("examples/crane_transfer.costate")).unwrap();
+    let cases = [
+        ("a [m/s^2]: in -1.5 .. 1.5, guess 0", "a [m/s^2]: in -1.5 .. 1.5, guess 1e300"),
+        ("theta [rad]: start 0, end 0", "theta [rad]: start 0, end 5e-324"),
+        ("x [m]: start 0, end 12", "x [m]: start 0, end 1e23"),
+        ("x [m]: start 0, end 12", "x [m]: start 0, end 12, guess 1e300"),
+        ("v [m/s]: start 0, end 0, in -2 .. 2", "v [m/s]: start 0, end 0, in -1e300 .. 2"),
+        ("rope = 6 [m]", "rope = 6e200 [m]"),
+    ];
+    for (from, to) in cases {
+        assert!(crane.contains(from), "{from}");
+        let text = crane.replace(from, to);
+        let (code, stderr, stdout) = solve_text("extreme", &text, &[]);
+        assert!(matches!(code, Some(0) | Some(1)), "`{to}`: exit {code:?}\n{stderr}{stdout}");
+        assert!(!stderr.contains("internal"), "`{to}`: {stderr}");
+        if stdout.contains("status      solved") {
+            let violation: f64 = stdout
+                .lines()
+                .find_map(|l| l.strip_prefix("violation   "))
+                .and_then(|v| v.trim().parse().ok())
+                .unwrap_or_else(|| panic!("no violation line: {stdout}"));
+            assert!(violation <= 1e-5, "`{to}`: solved with violation {violation}\n{stdout}");
+        }
+    }
+}

@@ -47,6 +47,7 @@ fn neovim_shows_diagnostics_hover_completion_and_the_solve() {
         .env("COSTATE_NVIM_OUT", &out)
         .env("COSTATE_NVIM_BROKEN_LINE", broken_line.to_string())
         .env("COSTATE_NVIM_FIXED_TEXT", good)
+        .env("COSTATE_NVIM_PLUGIN", repo().join("editors/neovim"))
         .output()
         .expect("nvim runs");
     let received: Value =

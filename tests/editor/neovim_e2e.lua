@@ -1,6 +1,7 @@
--- A real editor end to end: Neovim (0.7 or newer) starts `costate lsp`, opens a problem file
--- with an error, waits for the diagnostic, asks for hover and completion, fixes the file,
--- saves, and waits for the solve. Everything it received is written as JSON to
+-- A real editor end to end, set up exactly as editors/neovim/README.md says (the plugin on the
+-- runtime path, `require("costate").setup(...)`): Neovim (0.7 or newer) opens a problem file
+-- with an error, the plugin starts `costate lsp`, the script waits for the diagnostic, asks
+-- for hover and completion, fixes the file, saves, and waits for the solve. Everything it received is written as JSON to
 -- $COSTATE_NVIM_OUT for tests/editor_neovim.rs to check. Each wait has a timeout, and the
 -- script always writes its output and quits, so a broken server fails the test, not hangs it.
 
@@ -9,33 +10,45 @@ local problem = os.getenv("COSTATE_NVIM_FILE")
 local costate = os.getenv("COSTATE_BIN")
 local broken_line = tonumber(os.getenv("COSTATE_NVIM_BROKEN_LINE")) -- zero-based
 local fixed_text = os.getenv("COSTATE_NVIM_FIXED_TEXT")
+local plugin_dir = os.getenv("COSTATE_NVIM_PLUGIN")
 
 local result = { errors = {} }
 local latest_diagnostics = nil
 local progress_end = nil
 
 local function run()
+  -- What the test observes goes through the global handlers, which every client uses.
+  local publish = vim.lsp.handlers["textDocument/publishDiagnostics"]
+  vim.lsp.handlers["textDocument/publishDiagnostics"] = function(err, params, ctx, config)
+    latest_diagnostics = params
+    return publish(err, params, ctx, config)
+  end
+  vim.lsp.handlers["$/progress"] = function(_, params)
+    if params.value.kind == "end" then
+      progress_end = params.value.message
+    end
+  end
+  -- The README's set-up, verbatim but for the paths.
+  vim.opt.runtimepath:append(plugin_dir)
+  require("costate").setup({
+    cmd = { costate, "lsp" },
+    settings = { costate = { solveOnSave = true, solveIntervals = 20 } },
+  })
+  -- A user's configuration has filetype detection on (`-u NONE` leaves it off).
+  vim.cmd("filetype plugin on")
   vim.cmd("edit " .. vim.fn.fnameescape(problem))
   local buf = vim.api.nvim_get_current_buf()
   local uri = vim.uri_from_bufnr(buf)
-  local client_id = vim.lsp.start_client({
-    name = "costate",
-    cmd = { costate, "lsp" },
-    root_dir = vim.fn.fnamemodify(problem, ":h"),
-    init_options = { solveOnSave = true, solveIntervals = 20 },
-    handlers = {
-      ["textDocument/publishDiagnostics"] = function(_, params)
-        latest_diagnostics = params
-      end,
-      ["$/progress"] = function(_, params)
-        if params.value.kind == "end" then
-          progress_end = params.value.message
-        end
-      end,
-    },
-  })
-  vim.lsp.buf_attach_client(buf, client_id)
-  local client = vim.lsp.get_client_by_id(client_id)
+  local client = nil
+  vim.wait(30000, function()
+    client = require("costate").client(buf)
+    return client ~= nil
+  end, 20)
+  if client == nil then
+    table.insert(result.errors, "the plugin started no costate client")
+    return
+  end
+  result.neovim = vim.version and tostring(vim.version().major .. "." .. vim.version().minor)
 
   local function wait(what, condition)
     if not vim.wait(120000, condition, 20) then
@@ -84,7 +97,7 @@ local function run()
   result.progress_end = progress_end
   result.solution = request("costate/solution", { uri = uri })
   result.code_lens = request("textDocument/codeLens", { textDocument = { uri = uri } })
-  vim.lsp.stop_client(client_id)
+  vim.lsp.stop_client(client.id)
 end
 
 local ok, err = pcall(run)

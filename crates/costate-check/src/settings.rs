@@ -10,7 +10,7 @@
 //! | `integrator` | `rk4` or `radau` | `rk4` | integration scheme inside an interval |
 //! | `substeps` | integer >= 1 | 1 | integrator steps per interval |
 //! | `control_shape` | `constant` or `linear` | `constant` | control parametrisation per interval |
-//! | `tolerance` | number > 0 | 1e-6 | optimality and feasibility tolerance of the SQP |
+//! | `tolerance` | 1e-12 ..= 1e-2 | 1e-6 | optimality and feasibility tolerance of the SQP (relative, on scaled conditions) |
 //! | `iteration_limit` | integer >= 1 | 200 | SQP iterations before giving up |
 //! | `time_limit` | time > 0 (bare: seconds) | none | wall-clock budget of the solve, in s |
 //! | `hessian` | `bfgs` or `exact` | `exact` | Hessian of the Lagrangian: quasi-Newton or exact |
@@ -83,8 +83,9 @@ impl Default for SolveSettings {
 pub enum ValueKind {
     /// An integer at least this large.
     Integer { min: i64 },
-    /// A positive number.
-    Positive,
+    /// A number in `lo ..= hi` (`lo > 0`): outside it the setting has no sensible meaning
+    /// (a tolerance of 1 calls any point optimal).
+    Between { lo: f64, hi: f64 },
     /// A positive duration; bare numbers are seconds.
     Duration,
     /// One of these names.
@@ -129,7 +130,7 @@ pub const KEYS: &[KeyDef] = &[
     },
     KeyDef {
         key: "tolerance",
-        kind: ValueKind::Positive,
+        kind: ValueKind::Between { lo: 1e-12, hi: 1e-2 },
         default: "1e-6",
         doc: "optimality and feasibility tolerance of the SQP",
     },

@@ -63,6 +63,17 @@ pub fn findings(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic> {
             }
             out.extend(found);
         }
+        OcpStatus::ViolatedUnscaled { violations } => {
+            let mut found = violated_constraints(loaded, solution, violations);
+            if let Some(first) = found.first_mut() {
+                *first = first.clone().with_help(
+                    "the solver's scaled conditions hold but this does not: the scales come from \
+                     the magnitudes the file states (bounds, start and end values, guesses); give \
+                     guesses of the size the solution will have, or a `scale` attribute",
+                );
+            }
+            out.extend(found);
+        }
         OcpStatus::IterationLimit | OcpStatus::TimeLimit | OcpStatus::Stalled(_) => {
             out.extend(runaway_variables(loaded, solution));
         }

@@ -54,6 +54,9 @@ pub fn status_label(status: &OcpStatus) -> &'static str {
             "stalled: the QP subproblem has no usable solution"
         }
         OcpStatus::Stalled(StallReason::NoProgress) => "stalled: steps no longer make progress",
+        OcpStatus::ViolatedUnscaled { .. } => {
+            "not solved: constraints met only in the solver's scaling"
+        }
     }
 }
 

@@ -11,6 +11,9 @@
 //!   declaration states (start and end values or ranges, `in` bounds, `guess`), or 1 when there
 //!   is none or all are 0. Such a number is the size the user expects the quantity to reach, so
 //!   dividing by it brings the scaled variable to order one (common practice in NLP scaling).
+//!   The guess counts inside the `in` bounds only, and at most a thousand times the other
+//!   magnitudes stated; magnitudes below 1e-60 count as zero, and every scale lies in
+//!   1e-60 ..= 1e60, so scaled data stay finite whatever the file says.
 //! - **Horizon start**: the independent variable's `start`, or 0 when none is written.
 //! - **Free end** (`end free` or `end in LO .. HI`): the lower bound is raised to the start (an
 //!   end before the start has no meaning; the checker reports a range entirely before it).
@@ -40,19 +43,36 @@ fn endpoint(e: Option<Endpoint>) -> Bounds {
     }
 }
 
-/// See the module docs: user scale, else the largest finite magnitude stated, else 1.
+/// Smallest and largest scale used: products of two scales (Hessian entries) and their
+/// reciprocals stay far inside the range of `f64` (a scale of 5e-324 made a gradient infinite,
+/// one of 1e300 a Hessian entry). Magnitudes below the smallest count as zero.
+pub(crate) const SCALE_RANGE: (f64, f64) = (1e-60, 1e60);
+
+/// A guess counts towards the scale only up to this multiple of the magnitudes the
+/// declaration states: a guess a million times the bounds is more likely a slip than the size
+/// the user expects.
+const GUESS_SCALE_LIMIT: f64 = 1e3;
+
+/// See the module docs: user scale, else the largest finite magnitude stated, else 1; always
+/// within [`SCALE_RANGE`].
 pub(crate) fn scale_of(attrs: &VarAttrs) -> f64 {
+    let (lowest, highest) = SCALE_RANGE;
     if let Some(s) = attrs.scale.filter(|s| s.is_finite() && *s > 0.0) {
-        return s;
+        return s.clamp(lowest, highest);
     }
+    let bounds = interval(attrs.bounds);
     let mut values = Vec::new();
-    for b in [interval(attrs.bounds), endpoint(attrs.start), endpoint(attrs.end)] {
+    for b in [bounds, endpoint(attrs.start), endpoint(attrs.end)] {
         values.extend([b.lo, b.hi]);
     }
-    values.extend(attrs.guess);
-    let m = values.into_iter().filter(|v| v.is_finite()).fold(0.0_f64, |m, v| m.max(v.abs()));
+    let magnitude = |v: &f64| if v.is_finite() && v.abs() >= lowest { v.abs() } else { 0.0 };
+    let stated = values.iter().map(magnitude).fold(0.0_f64, f64::max);
+    // The guess as the transcription uses it: inside the `in` bounds.
+    let guess = attrs.guess.map_or(0.0, |g| magnitude(&g.clamp(bounds.lo, bounds.hi)));
+    let guess = if stated > 0.0 { guess.min(GUESS_SCALE_LIMIT * stated) } else { guess };
+    let m = stated.max(guess);
     if m > 0.0 {
-        m
+        m.min(highest)
     } else {
         1.0
     }
@@ -156,10 +176,36 @@ mod tests {
         assert_eq!(scale_of(&a), 1e3);
         a.bounds = Some(Interval { lo: 0.0, hi: f64::INFINITY });
         a.end = Some(Endpoint::Range(Interval { lo: -40.0, hi: 3.0 }));
-        a.guess = Some(-50.0);
+        a.guess = Some(50.0);
         assert_eq!(scale_of(&a), 50.0);
+        // A guess outside the `in` bounds counts as the value it is clamped to.
+        a.guess = Some(-50.0);
+        assert_eq!(scale_of(&a), 40.0);
         assert_eq!(scale_of(&VarAttrs::default()), 1.0);
         let zeros = VarAttrs { start: Some(Endpoint::Fixed(0.0)), ..VarAttrs::default() };
         assert_eq!(scale_of(&zeros), 1.0);
+    }
+
+    #[test]
+    fn extreme_magnitudes_give_a_usable_scale() {
+        // Found by fuzzing: these made the first QP's data infinite (an internal error).
+        let tiny = VarAttrs { end: Some(Endpoint::Fixed(5e-324)), ..VarAttrs::default() };
+        assert_eq!(scale_of(&tiny), 1.0);
+        let huge_guess = VarAttrs {
+            bounds: Some(Interval { lo: -1.5, hi: 1.5 }),
+            guess: Some(1e300),
+            ..VarAttrs::default()
+        };
+        assert_eq!(scale_of(&huge_guess), 1.5, "a guess counts only inside the bounds");
+        let far_guess = VarAttrs {
+            end: Some(Endpoint::Fixed(12.0)),
+            guess: Some(1e300),
+            ..VarAttrs::default()
+        };
+        assert_eq!(scale_of(&far_guess), 12e3, "at most a thousand times what is stated");
+        let only_guess = VarAttrs { guess: Some(1e300), ..VarAttrs::default() };
+        assert_eq!(scale_of(&only_guess), SCALE_RANGE.1);
+        let user = VarAttrs { scale: Some(1e-300), ..VarAttrs::default() };
+        assert_eq!(scale_of(&user), SCALE_RANGE.0);
     }
 }

@@ -384,7 +384,23 @@ impl<'a> Checker<'a> {
                     return None;
                 }
             }
-            ValueKind::Positive | ValueKind::Duration => {
+            ValueKind::Between { lo, hi } => {
+                if !(lo..=hi).contains(&v) {
+                    let d = invalid(
+                        format!("`{key}` must be between {lo:e} and {hi:e}, found {v:e}"),
+                        "out of range",
+                        format!(
+                            "the default is {}; {} is the {} sensible value",
+                            key_def(key).map_or("", |k| k.default),
+                            if v < lo { lo } else { hi },
+                            if v < lo { "smallest" } else { "largest" }
+                        ),
+                    );
+                    self.push(d);
+                    return None;
+                }
+            }
+            ValueKind::Duration => {
                 if v <= 0.0 {
                     let d = invalid(
                         format!("`{key}` must be positive, found {v}"),

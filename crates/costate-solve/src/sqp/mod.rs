@@ -695,7 +695,12 @@ impl Sqp {
         let st = self.settings.clone();
         let wk = self.work.as_mut().ok_or_else(uninit)?;
         let t = Instant::now();
-        wk.model.solve(wk.qp.as_mut()).map_err(ArgminError::msg)?;
+        // Data the QP refuses (entries that overflowed from extreme magnitudes in the file) end
+        // the solve with a status, never as an internal error.
+        if wk.model.solve(wk.qp.as_mut()).is_err() {
+            self.qp_time += t.elapsed();
+            return Ok(StepOutcome::NoStep(QpStatus::NumericalFailure));
+        }
         self.qp_time += t.elapsed();
         if let Some(r) = wk.riccati.as_mut().filter(|_| wk.chain_convexified) {
             if wk.model.sol.status.has_solution() {
@@ -739,10 +744,12 @@ impl Sqp {
         let wk = self.work.as_mut().ok_or_else(uninit)?;
         let weight = wk.penalty;
         let t = Instant::now();
-        let slacks = wk
-            .model
-            .solve_elastic(ElasticKind::Penalised { weight }, wk.qp_elastic.as_mut())
-            .map_err(ArgminError::msg)?;
+        let Ok(slacks) =
+            wk.model.solve_elastic(ElasticKind::Penalised { weight }, wk.qp_elastic.as_mut())
+        else {
+            self.qp_time += t.elapsed();
+            return Ok(StepOutcome::NoStep(QpStatus::NumericalFailure));
+        };
         self.qp_time += t.elapsed();
         row.qp_solves += 1;
         row.qp_iterations += wk.model.sol.iterations;
@@ -788,10 +795,12 @@ impl Sqp {
         let tol = self.settings.infeasibility_tolerance;
         let wk = self.work.as_mut().ok_or_else(uninit)?;
         let t = Instant::now();
-        let least = wk
-            .model
-            .solve_elastic(ElasticKind::Feasibility, wk.qp_elastic.as_mut())
-            .map_err(ArgminError::msg)?;
+        let Ok(least) = wk.model.solve_elastic(ElasticKind::Feasibility, wk.qp_elastic.as_mut())
+        else {
+            // Data the QP refuses: no verdict on the violation from here.
+            self.qp_time += t.elapsed();
+            return Ok(None);
+        };
         self.qp_time += t.elapsed();
         row.qp_solves += 1;
         let sol = &wk.model.sol;

@@ -280,6 +280,12 @@ pub enum OcpStatus {
     /// (not named in the original sketch of this API; the SQP has this outcome and no other
     /// status describes it honestly).
     Stalled(StallReason),
+    /// The SQP's scaled conditions held, but in the problem's own units rows or bounds are
+    /// still violated far beyond the tolerance: the scales (from the declared magnitudes and
+    /// guesses) hid them. The violations, largest first.
+    ViolatedUnscaled {
+        violations: Vec<Violation>,
+    },
 }
 
 impl OcpStatus {
@@ -373,7 +379,11 @@ fn run(
     }
 }
 
-/// The solution in the problem's terms.
+/// How far beyond the feasibility tolerance a row or bound of a "solved" point may miss,
+/// relative to the size of what it compares, before the verdict is withdrawn (the factor by
+/// which "solved to reduced accuracy" loosens feasibility).
+const UNSCALED_VIOLATION_FACTOR: f64 = 10.0;
+
 /// The solution in the problem's terms. Rows and bounds count as violated when they are off
 /// by more than `tolerance` (rounding-level residuals of satisfied rows are not findings).
 fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSolution {
@@ -452,9 +462,50 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSoluti
         }
     }
 
+    // "Solved" is a promise about the problem as stated, not about its scaled image: a row
+    // or bound may not miss by more than a few tolerances relative to the size of what it
+    // compares (an absurd guess of 1e300 made the scale of a state 1e300 and an end missed by
+    // 12 m looked like 1e-299).
+    let relative = |i: usize, a: f64| {
+        let (what, node) = l.decode_row(i);
+        let size = |j: usize| w.get(j).map_or(0.0, |v: &f64| v.abs());
+        let reference = match (what, node) {
+            (ViolationSource::Continuity(x), Some(k)) if k < l.intervals => {
+                size(l.x(k, x)).max(size(l.x(k + 1, x)))
+            }
+            (ViolationSource::Function(FunctionKind::Integrands, q), Some(k))
+                if k < l.intervals =>
+            {
+                let before = if k > 0 { size(l.q(k, q)) } else { 0.0 };
+                before.max(size(l.q(k + 1, q)))
+            }
+            _ => {
+                let finite = |b: f64| if b.is_finite() { b.abs() } else { 0.0 };
+                c[i].abs().max(finite(cl[i])).max(finite(cu[i]))
+            }
+        };
+        a / (1.0 + reference)
+    };
+    let unscaled_limit = UNSCALED_VIOLATION_FACTOR * tolerance;
+    let missed_unscaled = (0..m).any(|i| relative(i, outside(c[i], cl[i], cu[i])) > unscaled_limit)
+        || (0..n).any(|j| {
+            let finite = |b: f64| if b.is_finite() { b.abs() } else { 0.0 };
+            let a = outside(w[j], wl[j], wu[j]);
+            a / (1.0 + w[j].abs().max(finite(wl[j])).max(finite(wu[j]))) > unscaled_limit
+        });
+    let solved_status = |st: OcpStatus, violations: &mut Vec<Violation>| {
+        if missed_unscaled {
+            violations.sort_by(|a, b| b.amount.total_cmp(&a.amount));
+            OcpStatus::ViolatedUnscaled { violations: std::mem::take(violations) }
+        } else {
+            st
+        }
+    };
     let status = match r.status {
-        SqpStatus::Solved => OcpStatus::Solved,
-        SqpStatus::SolvedReducedAccuracy => OcpStatus::SolvedReducedAccuracy,
+        SqpStatus::Solved => solved_status(OcpStatus::Solved, &mut violations),
+        SqpStatus::SolvedReducedAccuracy => {
+            solved_status(OcpStatus::SolvedReducedAccuracy, &mut violations)
+        }
         SqpStatus::IterationLimit => OcpStatus::IterationLimit,
         SqpStatus::TimeLimit => OcpStatus::TimeLimit,
         SqpStatus::Interrupted => OcpStatus::Interrupted,

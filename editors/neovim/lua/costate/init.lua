@@ -1,5 +1,7 @@
 -- costate for Neovim: the `costate` filetype and the language server `costate lsp`, started
--- with the built-in client (vim.lsp.start, Neovim 0.8 or newer). No plugin dependencies.
+-- with the built-in client, on Neovim 0.7 (Debian stable) through 0.11: `vim.lsp.start` where
+-- it exists (0.8+), `vim.lsp.start_client` and `buf_attach_client` before. No plugin
+-- dependencies.
 --
 --   require("costate").setup({
 --     cmd = { "costate", "lsp" },                          -- or a full path to the binary
@@ -25,14 +27,31 @@ M.defaults = {
   root_markers = { ".git" },
 }
 
+-- The nearest folder upwards holding one of `markers`, else the file's own folder.
 local function root_dir(bufnr, markers)
   local file = vim.api.nvim_buf_get_name(bufnr)
-  local dir = vim.fs.dirname(file)
-  local found = vim.fs.find(markers, { upward = true, path = dir })[1]
-  return found and vim.fs.dirname(found) or dir
+  local dir = vim.fn.fnamemodify(file, ":p:h")
+  if vim.fs ~= nil and vim.fs.find ~= nil then
+    local found = vim.fs.find(markers, { upward = true, path = dir })[1]
+    return found and vim.fs.dirname(found) or dir
+  end
+  -- Neovim 0.7: no vim.fs; finddir/findfile search upwards with `;`.
+  for _, marker in ipairs(markers) do
+    local found = vim.fn.finddir(marker, dir .. ";")
+    if found == "" then
+      found = vim.fn.findfile(marker, dir .. ";")
+    end
+    if found ~= "" then
+      return vim.fn.fnamemodify(vim.fn.fnamemodify(found, ":p"):gsub("/$", ""), ":h")
+    end
+  end
+  return dir
 end
 
---- Starts (or reuses, per root) the costate server for buffer `bufnr`.
+-- Clients started on Neovim 0.7, one per root (vim.lsp.start does this bookkeeping on 0.8+).
+local clients_by_root = {}
+
+--- Starts (or reuses, per root) the costate server for buffer `bufnr`; returns the client id.
 function M.start(bufnr, opts)
   opts = opts or M.options or M.defaults
   if vim.fn.executable(opts.cmd[1]) ~= 1 then
@@ -42,23 +61,39 @@ function M.start(bufnr, opts)
     )
     return nil
   end
-  return vim.lsp.start({
+  local config = {
     name = "costate",
     cmd = opts.cmd,
     root_dir = root_dir(bufnr, opts.root_markers),
     settings = opts.settings,
     -- The same values at initialisation, so the first solve honours them.
     init_options = opts.settings.costate,
-  }, { bufnr = bufnr })
+  }
+  if vim.lsp.start ~= nil then
+    return vim.lsp.start(config, { bufnr = bufnr })
+  end
+  local id = clients_by_root[config.root_dir]
+  local client = id and vim.lsp.get_client_by_id(id)
+  if client == nil or client.is_stopped() then
+    id = vim.lsp.start_client(config)
+    if id == nil then
+      return nil
+    end
+    clients_by_root[config.root_dir] = id
+  end
+  vim.lsp.buf_attach_client(bufnr, id)
+  return id
 end
 
 function M.setup(opts)
-  if vim.lsp.start == nil or vim.fs == nil then
-    vim.notify("costate: Neovim 0.8 or newer is needed for vim.lsp.start", vim.log.levels.ERROR)
+  if vim.lsp.start == nil and vim.lsp.start_client == nil then
+    vim.notify("costate: this Neovim has no built-in LSP client (0.7 or newer needed)", vim.log.levels.ERROR)
     return
   end
   M.options = vim.tbl_deep_extend("force", {}, M.defaults, opts or {})
-  vim.filetype.add({ extension = { costate = "costate" } })
+  if vim.filetype ~= nil and vim.filetype.add ~= nil then
+    vim.filetype.add({ extension = { costate = "costate" } })
+  end
   local group = vim.api.nvim_create_augroup("costate_lsp", { clear = true })
   vim.api.nvim_create_autocmd("FileType", {
     group = group,
@@ -78,13 +113,27 @@ function M.setup(opts)
   end
 end
 
+--- The costate client attached to buffer `bufnr`, or nil (on every version from 0.7).
+function M.client(bufnr)
+  local clients
+  if vim.lsp.get_clients ~= nil then
+    clients = vim.lsp.get_clients({ bufnr = bufnr }) -- 0.10+
+  else
+    clients = vim.lsp.buf_get_clients(bufnr) -- 0.7 to 0.9
+  end
+  for _, c in pairs(clients) do
+    if c.name == "costate" then
+      return c
+    end
+  end
+  return nil
+end
+
 --- Asks the server for the latest solution of the current buffer (the custom request
 --- `costate/solution`) and opens the JSON document in a scratch buffer; `nil` means none yet.
 function M.show_solution()
   local bufnr = vim.api.nvim_get_current_buf()
-  -- get_clients replaced get_active_clients in Neovim 0.10; accept both.
-  local get_clients = vim.lsp.get_clients or vim.lsp.get_active_clients
-  local client = get_clients({ bufnr = bufnr, name = "costate" })[1]
+  local client = M.client(bufnr)
   if client == nil then
     vim.notify("costate: no costate server attached to this buffer", vim.log.levels.WARN)
     return
