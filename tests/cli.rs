@@ -320,3 +320,29 @@ fn extreme_numbers_end_with_a_clear_status_never_an_internal_error_or_a_false_so
         }
     }
 }
+
+#[test]
+fn a_flood_of_errors_is_cut_to_a_few_hundred_with_a_count() {
+    let dir = temp_dir("flood");
+    let file = dir.join("flood.costate");
+    std::fs::write(&file, format!("problem flood\n{}", "(\n".repeat(1000))).unwrap();
+    let out = costate(&["check", file.to_str().unwrap()]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(1));
+    assert_eq!(stdout.matches("[E0").count(), costate_syntax::MAX_SHOWN_DIAGNOSTICS, "{stdout}");
+    assert!(stdout.contains("more in"), "{stdout}");
+    // The count still covers every error found.
+    let total: usize = stdout
+        .lines()
+        .last()
+        .and_then(|l| l.split_whitespace().next())
+        .and_then(|n| n.parse().ok())
+        .unwrap();
+    assert!(total > costate_syntax::MAX_SHOWN_DIAGNOSTICS, "{stdout}");
+    let out = costate(&["check", "--format", "json", file.to_str().unwrap()]);
+    let doc: serde_json::Value = serde_json::from_str(&text(&out.stdout)).unwrap();
+    let listed = doc["files"][0]["diagnostics"].as_array().unwrap().len();
+    assert_eq!(listed, costate_syntax::MAX_SHOWN_DIAGNOSTICS);
+    assert_eq!(doc["files"][0]["omitted"].as_u64().unwrap() as usize + listed, total);
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -2,7 +2,7 @@
 
 use std::path::PathBuf;
 
-use costate_syntax::{Diagnostic, LineIndex};
+use costate_syntax::{shown_diagnostics, Diagnostic, LineIndex};
 use serde_json::json;
 
 use crate::{exit, files, render, Format};
@@ -36,17 +36,26 @@ pub fn run(paths: &[PathBuf], format: Format, color: bool) -> u8 {
         let found = diagnostics(&source);
         errors += found.iter().filter(|d| d.is_error()).count();
         warnings += found.iter().filter(|d| !d.is_error()).count();
+        let (listed, omitted) = shown_diagnostics(&found);
         match format {
             Format::Text => {
-                for d in &found {
-                    print!("{}", render::terminal(&shown, &source, d, color));
+                let renderer = render::Renderer::new(&shown, &source, color);
+                for d in &listed {
+                    print!("{}", renderer.render(d));
+                }
+                if omitted > 0 {
+                    println!(
+                        "... and {omitted} more in {shown} (the first {} shown)",
+                        listed.len()
+                    );
                 }
             }
             Format::Json => {
                 let index = LineIndex::new(&source);
                 json_files.push(json!({
                     "path": shown,
-                    "diagnostics": found.iter().map(|d| render::json(&source, &index, d)).collect::<Vec<_>>(),
+                    "diagnostics": listed.iter().map(|d| render::json(&source, &index, d)).collect::<Vec<_>>(),
+                    "omitted": omitted,
                 }));
             }
         }

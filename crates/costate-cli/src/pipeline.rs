@@ -19,8 +19,13 @@ pub fn load(path: &Path, color: bool) -> Result<Loaded, LoadError> {
     let shown = path.display().to_string();
     let source = files::read_source(path).map_err(LoadError::Io)?;
     costate_driver::load(shown.clone(), source.clone()).map_err(|diagnostics| {
-        let errors: Vec<_> = diagnostics.iter().filter(|d| d.is_error()).collect();
-        let rendered = errors.iter().map(|d| render::terminal(&shown, &source, d, color)).collect();
+        let errors: Vec<_> = diagnostics.into_iter().filter(|d| d.is_error()).collect();
+        let renderer = render::Renderer::new(&shown, &source, color);
+        let (listed, omitted) = costate_syntax::shown_diagnostics(&errors);
+        let mut rendered: String = listed.iter().map(|d| renderer.render(d)).collect();
+        if omitted > 0 {
+            rendered.push_str(&format!("... and {omitted} more errors in {shown}\n"));
+        }
         LoadError::Invalid { rendered, errors: errors.len() }
     })
 }

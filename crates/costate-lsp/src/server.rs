@@ -128,8 +128,15 @@ impl Backend {
         if self.state().documents.get(&uri).is_none_or(|d| d.version != version) {
             return; // edited meanwhile: the publish for the newer version follows
         }
+        // A few hundred at most; the last one shown says how many more there are.
+        let (listed, omitted) = costate_syntax::shown_diagnostics(&analysis.diagnostics);
         let mut diagnostics: Vec<_> =
-            analysis.diagnostics.iter().map(|d| convert::diagnostic(&analysis, &uri, d)).collect();
+            listed.iter().map(|d| convert::diagnostic(&analysis, &uri, d)).collect();
+        if omitted > 0 {
+            if let Some(last) = diagnostics.last_mut() {
+                last.message.push_str(&format!("\n(and {omitted} more diagnostics in this file)"));
+            }
+        }
         if let Some(solve) = self.latest_solve(&uri).filter(|s| s.text == analysis.source) {
             diagnostics
                 .extend(solve.findings.iter().map(|d| convert::diagnostic(&analysis, &uri, d)));

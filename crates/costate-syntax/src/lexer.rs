@@ -344,6 +344,11 @@ impl Lexer<'_> {
             return;
         }
         self.pos += c.len_utf8();
+        let mut run = 1;
+        while self.text[self.pos..].starts_with(c) {
+            self.pos += c.len_utf8();
+            run += 1;
+        }
         let replacement = match c {
             '≤' => Some("<="),
             '≥' => Some(">="),
@@ -354,9 +359,14 @@ impl Lexer<'_> {
             '…' => Some(".."),
             _ => None,
         };
+        let message = if run == 1 {
+            format!("unexpected character `{c}`")
+        } else {
+            format!("unexpected character `{c}` ({run} in a row)")
+        };
         let mut diagnostic = Diagnostic::new(
             codes::UNEXPECTED_CHARACTER,
-            format!("unexpected character `{c}`"),
+            message,
             Span::new(start, self.pos),
             "this character has no meaning here",
         );
@@ -398,15 +408,24 @@ impl Lexer<'_> {
             b'>' => two(b'=', Ge, Gt, self),
             _ => {
                 self.pos += 1;
+                // A run of the same stray character is one finding (a megabyte of NUL bytes
+                // once made a million diagnostics and took 6 s).
+                let run = 1 + self.bytes[self.pos..].iter().take_while(|&&x| x == b).count();
+                self.pos = start + run;
                 let c = b as char;
                 let shown = if c.is_ascii_graphic() {
                     c.to_string()
                 } else {
                     c.escape_default().to_string()
                 };
+                let message = if run == 1 {
+                    format!("unexpected character `{shown}`")
+                } else {
+                    format!("unexpected character `{shown}` ({run} in a row)")
+                };
                 let mut diagnostic = Diagnostic::new(
                     codes::UNEXPECTED_CHARACTER,
-                    format!("unexpected character `{shown}`"),
+                    message,
                     Span::new(start, self.pos),
                     "this character has no meaning here",
                 );

@@ -17,7 +17,9 @@ mod parser;
 mod span;
 pub mod testing;
 
-pub use diagnostic::{closest_name, Code, Diagnostic, Label, Severity};
+pub use diagnostic::{
+    closest_name, shown_diagnostics, Code, Diagnostic, Label, Severity, MAX_SHOWN_DIAGNOSTICS,
+};
 pub use lexer::{lex, Token, TokenKind};
 pub use line_index::{LineCol, LineIndex};
 pub use parser::{parse, Parse, BLOCK_KEYWORDS, LINE_KEYWORDS};

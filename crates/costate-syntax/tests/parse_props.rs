@@ -136,3 +136,29 @@ fn the_longest_accepted_entry_parses_within_a_test_thread_stack() {
     assert_eq!(parse.diagnostics.len(), 1);
     assert_eq!(parse.diagnostics[0].code, costate_syntax::codes::NESTING_TOO_DEEP);
 }
+
+#[test]
+fn a_run_of_stray_bytes_is_one_finding() {
+    // Found by fuzzing: a megabyte of NUL bytes made a million diagnostics.
+    let text = format!("problem p\n{}\n", "\0".repeat(100_000));
+    let parse = costate_syntax::parse(&text);
+    let stray: Vec<_> =
+        parse.diagnostics.iter().filter(|d| d.message.contains("unexpected character")).collect();
+    assert_eq!(stray.len(), 1, "{:?}", parse.diagnostics.len());
+    assert!(stray[0].message.contains("100000 in a row"), "{}", stray[0].message);
+    assert_eq!(stray[0].primary.span.end - stray[0].primary.span.start, 100_000);
+}
+
+#[test]
+fn blank_lines_inside_an_expression_are_skipped_in_one_pass() {
+    // 200,000 line breaks inside parentheses: each used to search ahead over all the others
+    // (quadratic: 400,000 took 43 s). Correctness is what is checked here; the time is the
+    // same run without the search.
+    let text = format!("problem p\nconst {{\n  a = (1 +{}2)\n}}\n", "\n".repeat(200_000));
+    let parse = costate_syntax::parse(&text);
+    assert!(
+        parse.diagnostics.iter().all(|d| !d.is_error() || d.message.contains("missing")),
+        "{:?}",
+        parse.diagnostics.iter().map(|d| &d.message).collect::<Vec<_>>()
+    );
+}

@@ -179,6 +179,14 @@ fn significant_tokens<'a>(
     let mut out: Vec<Spanned<'a>> = Vec::with_capacity(raw.len());
     let mut out_poison = Vec::with_capacity(raw.len());
     let mut last_code: Option<Tok<'a>> = None;
+    // Per token, the first one at or after it that is neither a line break nor a doc comment
+    // (`raw.len()` if none): looked up, not searched for, so a run of blank lines inside an
+    // entry costs linear time (searching made 400,000 of them take 43 s).
+    let mut next_code = vec![raw.len(); raw.len() + 1];
+    for i in (0..raw.len()).rev() {
+        next_code[i] =
+            if matches!(raw[i].0, Tok::Newline | Tok::Doc(_)) { next_code[i + 1] } else { i };
+    }
     for (i, &(tok, span)) in raw.iter().enumerate() {
         match tok {
             Tok::Newline => {
@@ -190,10 +198,7 @@ fn significant_tokens<'a>(
                 if inside_pair || continues {
                     // A new item on the next line always ends the entry: a dangling operator
                     // must not pull the next item into this one.
-                    let next = raw[i..]
-                        .iter()
-                        .position(|(t, _)| !matches!(t, Tok::Newline | Tok::Doc(_)))
-                        .map(|k| i + k);
+                    let next = Some(next_code[i]).filter(|&k| k < raw.len());
                     if !next.is_some_and(|k| starts_item(raw, k)) {
                         continue;
                     }
