@@ -66,6 +66,8 @@ pub struct StageIpmSettings {
     /// Equilibrate the QP's rows and columns before solving (see `scaling.rs`).
     /// Default `true`.
     pub equilibrate: bool,
+    /// Stop with [`QpStatus::TimeLimit`] once this instant has passed. Default none.
+    pub deadline: Option<std::time::Instant>,
 }
 
 impl Default for StageIpmSettings {
@@ -79,6 +81,7 @@ impl Default for StageIpmSettings {
             regularisation: 1e-11,
             refinement_steps: 8,
             equilibrate: true,
+            deadline: None,
         }
     }
 }
@@ -263,6 +266,10 @@ impl QpSolver for StageIpm {
         ws.run(&eq.scaled, &self.settings, scaled_out);
         eq.unscale(scaled_out, out);
         Ok(())
+    }
+
+    fn set_deadline(&mut self, deadline: Option<std::time::Instant>) {
+        self.settings.deadline = deadline;
     }
 
     fn shifted_step(&mut self, row_shift: &[f64], gradient_shift: &[f64], out: &mut [f64]) -> bool {
@@ -1146,6 +1153,9 @@ impl Workspace {
                     QpStatus::NumericalFailure
                 };
             }
+            if settings.deadline.is_some_and(|d| std::time::Instant::now() >= d) {
+                break QpStatus::TimeLimit;
+            }
             iterations += 1;
             let mu = if ms > 0 { dot(&self.s, &self.z) / ms as f64 } else { 0.0 };
             for t in 0..ms {
@@ -1373,5 +1383,21 @@ mod tests {
             assert!(close(ws.dz[t], sol[oz + t]), "dz[{t}] {} vs {}", ws.dz[t], sol[oz + t]);
             assert!(close(ws.ds[t], sol[os + t]), "ds[{t}]");
         }
+    }
+
+    #[test]
+    fn a_passed_deadline_stops_the_method_with_the_time_limit_status() {
+        let qp = small_qp();
+        let mut ipm = StageIpm::new(StageIpmSettings::default());
+        let mut out = QpSolution::new(0, 0);
+        ipm.solve(&qp, &mut out).unwrap();
+        assert_eq!(out.status, QpStatus::Solved, "the QP itself solves");
+        ipm.set_deadline(Some(std::time::Instant::now()));
+        ipm.solve(&qp, &mut out).unwrap();
+        assert_eq!(out.status, QpStatus::TimeLimit);
+        assert_eq!(out.iterations, 0);
+        ipm.set_deadline(None);
+        ipm.solve(&qp, &mut out).unwrap();
+        assert_eq!(out.status, QpStatus::Solved);
     }
 }

@@ -115,4 +115,8 @@ pub trait QpSolver {
     ) -> bool {
         false
     }
+
+    /// Stop iterating at `deadline` (status [`QpStatus::TimeLimit`]), so that a solve's time
+    /// limit holds within one QP iteration, not one QP. Solvers without the means ignore it.
+    fn set_deadline(&mut self, _deadline: Option<std::time::Instant>) {}
 }

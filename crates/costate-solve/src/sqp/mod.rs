@@ -481,6 +481,8 @@ pub struct Sqp {
     settings: SqpSettings,
     cancel: Option<Arc<AtomicBool>>,
     make_qp: Box<dyn Fn() -> Box<dyn QpSolver>>,
+    /// When the time limit runs out (set by [`solve_nlp`]); handed to the QP solvers.
+    deadline: Option<Instant>,
     work: Option<Work>,
     eval_time: Duration,
     qp_time: Duration,
@@ -504,6 +506,7 @@ impl Sqp {
             settings,
             cancel: None,
             make_qp: Box::new(move || Box::new(StageIpm::new(ipm.clone()))),
+            deadline: None,
             work: None,
             eval_time: Duration::ZERO,
             qp_time: Duration::ZERO,
@@ -519,6 +522,13 @@ impl Sqp {
 
     /// Use QP solvers made by `make` (one for the regular QPs, one for the elastic ones).
     #[must_use]
+    /// A QP solver that stops at the solve's deadline.
+    fn deadline_qp(&self) -> Box<dyn QpSolver> {
+        let mut qp = (self.make_qp)();
+        qp.set_deadline(self.deadline);
+        qp
+    }
+
     pub fn with_qp_solver(mut self, make: impl Fn() -> Box<dyn QpSolver> + 'static) -> Self {
         self.make_qp = Box::new(make);
         self
@@ -717,6 +727,9 @@ impl Sqp {
         row.qp_solves += 1;
         row.qp_iterations += wk.model.sol.iterations;
         row.qp_status = Some(wk.model.sol.status);
+        if wk.model.sol.status == QpStatus::TimeLimit {
+            return Ok(StepOutcome::NoStep(QpStatus::TimeLimit));
+        }
         let sol = &wk.model.sol;
         // Huge multipliers mean nearly inconsistent linearised constraints: the step would be
         // long and the penalty would explode, so the elastic step is taken instead.
@@ -754,6 +767,9 @@ impl Sqp {
         row.qp_solves += 1;
         row.qp_iterations += wk.model.sol.iterations;
         row.qp_status = Some(wk.model.sol.status);
+        if wk.model.sol.status == QpStatus::TimeLimit {
+            return Ok(StepOutcome::NoStep(QpStatus::TimeLimit));
+        }
         let usable = wk.model.sol.status.has_solution();
         if usable {
             let sol = &wk.model.sol;
@@ -1165,8 +1181,8 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
             nu,
             penalty: self.settings.penalty_start,
             model,
-            qp: (self.make_qp)(),
-            qp_elastic: (self.make_qp)(),
+            qp: self.deadline_qp(),
+            qp_elastic: self.deadline_qp(),
             bfgs,
             riccati,
             chain_convexified: false,
@@ -1302,6 +1318,10 @@ impl<N: Nlp> Solver<N, SqpState> for Sqp {
                 let status = SqpStatus::LocallyInfeasible { rows, conflict };
                 return self.end_or_restart(state, row, status);
             }
+            StepOutcome::NoStep(QpStatus::TimeLimit) => {
+                row.qp_time = self.qp_time - qp_time_before;
+                return self.end_with(state, row, SqpStatus::TimeLimit);
+            }
             StepOutcome::NoStep(status) => (StepKind::None, Some(status)),
         };
         let accepted = if qp_failure.is_none() {
@@ -1435,6 +1455,11 @@ pub fn solve_nlp<N: Nlp>(
     if let Some(flag) = cancel {
         sqp = sqp.with_cancel(flag);
     }
+    // The executor checks the limit between iterations; the QPs also stop at it (a QP at
+    // 20,000 intervals takes seconds).
+    sqp.deadline = Duration::try_from_secs_f64(settings.time_limit)
+        .ok()
+        .and_then(|limit| started.checked_add(limit));
     let mut exec = Executor::new(nlp, sqp).ctrlc(false);
     if let Ok(limit) = Duration::try_from_secs_f64(settings.time_limit) {
         exec = exec.timeout(limit);
