@@ -261,6 +261,12 @@ fn an_unreachable_end_names_the_bounds_in_conflict_in_declared_units() {
     assert!(stdout.contains("locally infeasible"), "{stdout}");
     assert!(stderr.contains("the end value 200 m of the bounds of state `x`"), "{stderr}");
     assert!(stderr.contains("the upper bound 7.2 km/h of the bounds of state `v`"), "{stderr}");
+    // Amounts measured on a state are in its declared unit.
+    let amounts: Vec<&str> = stderr
+        .lines()
+        .filter(|l| l.contains("of `x`") && l.contains("violated by up to"))
+        .collect();
+    assert!(!amounts.is_empty() && amounts.iter().all(|l| l.contains(" m ")), "{stderr}");
 }
 
 #[test]

@@ -108,13 +108,13 @@ fn violated_constraints(
 ) -> Vec<Diagnostic> {
     let map = &loaded.lowered.source_map;
     // (span, description, largest amount, nodes) in order of first appearance, worst first.
-    let mut groups: Vec<(Span, String, f64, Vec<usize>)> = Vec::new();
+    let mut groups: Vec<(Span, String, f64, Vec<usize>, ViolationSource)> = Vec::new();
     // The solver lists them largest first, so the first of each group is its worst.
     for v in violations {
         let (span, what) = describe_violation(loaded, v.what);
         match groups.iter_mut().find(|g| g.0 == span && g.1 == what) {
             Some(group) => group.3.extend(v.node),
-            None => groups.push((span, what, v.amount, v.node.into_iter().collect())),
+            None => groups.push((span, what, v.amount, v.node.into_iter().collect(), v.what)),
         }
     }
     let time = &map.time;
@@ -125,7 +125,7 @@ fn violated_constraints(
     groups
         .into_iter()
         .take(MAX_REPORTED_CONSTRAINTS)
-        .map(|(span, what, amount, mut nodes)| {
+        .map(|(span, what, amount, mut nodes, source)| {
             nodes.sort_unstable();
             nodes.dedup();
             let place = match nodes.as_slice() {
@@ -141,7 +141,7 @@ fn violated_constraints(
             };
             Diagnostic::new(
                 crate::codes::CONSTRAINT_VIOLATED,
-                format!("{what} stays violated by up to {}{place}", crate::report::sig(amount, 3)),
+                format!("{what} stays violated by up to {}{place}", amount_text(loaded, source, amount)),
                 span,
                 "cannot be met together with the other constraints",
             )
@@ -173,6 +173,29 @@ fn describe_violation(loaded: &Loaded, source: ViolationSource) -> (Span, String
             (s.decl_span, format!("the bounds of parameter `{}`", s.name))
         }
         ViolationSource::EndTime => (map.time.decl_span, format!("the end of `{}`", map.time.name)),
+    }
+}
+
+/// A violation (an SI difference) in the declared unit of the quantity it is measured on;
+/// rows of problem functions have no declared unit and show the number as the solver sees it.
+fn amount_text(loaded: &Loaded, source: ViolationSource, amount: f64) -> String {
+    let map = &loaded.lowered.source_map;
+    let var = |s: Option<&costate_lower::VarSource>| match s {
+        Some(s) => {
+            let value = crate::report::sig((s.to_user(amount) - s.to_user(0.0)).abs(), 3);
+            match s.unit.as_deref() {
+                Some(u) => format!("{value} {u}"),
+                None => value,
+            }
+        }
+        None => crate::report::sig(amount, 3),
+    };
+    match source {
+        ViolationSource::StateBound(i) | ViolationSource::Continuity(i) => var(map.states.get(i)),
+        ViolationSource::ControlBound(i) => var(map.controls.get(i)),
+        ViolationSource::ParamBound(i) => var(map.params.get(i)),
+        ViolationSource::EndTime => var(Some(&map.time)),
+        ViolationSource::Function(..) => crate::report::sig(amount, 3),
     }
 }
 
