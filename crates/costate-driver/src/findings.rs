@@ -1,6 +1,7 @@
 //! Solver findings as diagnostics on the source lines that caused them: the function that
 //! could not be evaluated, or the constraints that stayed violated.
 
+use costate_lower::{SourceMap, VarSource};
 use costate_model::Bounds;
 use costate_model::FunctionKind;
 use costate_solve::transcribe::{OcpSolution, OcpStatus, Violation, ViolationSource};
@@ -176,11 +177,21 @@ fn describe_violation(loaded: &Loaded, source: ViolationSource) -> (Span, String
     }
 }
 
-/// A violation (an SI difference) in the declared unit of the quantity it is measured on;
-/// rows of problem functions have no declared unit and show the number as the solver sees it.
+/// The declared quantity a violation or bound is measured on; rows of problem functions have
+/// none (their values are shown as the solver sees them).
+fn measured_on(map: &SourceMap, source: ViolationSource) -> Option<&VarSource> {
+    match source {
+        ViolationSource::StateBound(i) | ViolationSource::Continuity(i) => map.states.get(i),
+        ViolationSource::ControlBound(i) => map.controls.get(i),
+        ViolationSource::ParamBound(i) => map.params.get(i),
+        ViolationSource::EndTime => Some(&map.time),
+        ViolationSource::Function(..) => None,
+    }
+}
+
+/// A violation (an SI difference) in the declared unit of the quantity it is measured on.
 fn amount_text(loaded: &Loaded, source: ViolationSource, amount: f64) -> String {
-    let map = &loaded.lowered.source_map;
-    let var = |s: Option<&costate_lower::VarSource>| match s {
+    match measured_on(&loaded.lowered.source_map, source) {
         Some(s) => {
             let value = crate::report::sig((s.to_user(amount) - s.to_user(0.0)).abs(), 3);
             match s.unit.as_deref() {
@@ -189,31 +200,14 @@ fn amount_text(loaded: &Loaded, source: ViolationSource, amount: f64) -> String 
             }
         }
         None => crate::report::sig(amount, 3),
-    };
-    match source {
-        ViolationSource::StateBound(i) | ViolationSource::Continuity(i) => var(map.states.get(i)),
-        ViolationSource::ControlBound(i) => var(map.controls.get(i)),
-        ViolationSource::ParamBound(i) => var(map.params.get(i)),
-        ViolationSource::EndTime => var(Some(&map.time)),
-        ViolationSource::Function(..) => crate::report::sig(amount, 3),
     }
 }
 
 /// A bound's value in the declared unit of what it bounds (rows: as the solver sees them).
 fn conflict_value(loaded: &Loaded, source: ViolationSource, bound: f64) -> String {
-    let map = &loaded.lowered.source_map;
-    let var = |s: Option<&costate_lower::VarSource>| match s {
+    match measured_on(&loaded.lowered.source_map, source) {
         Some(s) => crate::report::with_unit(s.to_user(bound), s.unit.as_deref()),
         None => crate::report::sig(bound, 4),
-    };
-    match source {
-        ViolationSource::StateBound(i) | ViolationSource::Continuity(i) => var(map.states.get(i)),
-        ViolationSource::ControlBound(i) => var(map.controls.get(i)),
-        ViolationSource::ParamBound(i) => var(map.params.get(i)),
-        ViolationSource::EndTime => {
-            crate::report::with_unit(map.time.to_user(bound), map.time.unit.as_deref())
-        }
-        ViolationSource::Function(..) => crate::report::sig(bound, 4),
     }
 }
 
@@ -230,7 +224,7 @@ fn runaway_variables(loaded: &Loaded, solution: &OcpSolution) -> Vec<Diagnostic>
     let traj = &solution.trajectory;
     let mut out = Vec::new();
     let mut check = |kind: &str,
-                     source: &costate_lower::VarSource,
+                     source: &VarSource,
                      bounds: &Bounds,
                      scale: f64,
                      values: &[f64]| {

@@ -466,6 +466,7 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSoluti
     // or bound may not miss by more than a few tolerances relative to the size of what it
     // compares (an absurd guess of 1e300 made the scale of a state 1e300 and an end missed by
     // 12 m looked like 1e-299).
+    let finite = |b: f64| if b.is_finite() { b.abs() } else { 0.0 };
     let relative = |i: usize, a: f64| {
         let (what, node) = l.decode_row(i);
         let size = |j: usize| w.get(j).map_or(0.0, |v: &f64| v.abs());
@@ -479,17 +480,13 @@ fn report(nlp: &mut MultipleShooting, r: SqpResult, tolerance: f64) -> OcpSoluti
                 let before = if k > 0 { size(l.q(k, q)) } else { 0.0 };
                 before.max(size(l.q(k + 1, q)))
             }
-            _ => {
-                let finite = |b: f64| if b.is_finite() { b.abs() } else { 0.0 };
-                c[i].abs().max(finite(cl[i])).max(finite(cu[i]))
-            }
+            _ => c[i].abs().max(finite(cl[i])).max(finite(cu[i])),
         };
         a / (1.0 + reference)
     };
     let unscaled_limit = UNSCALED_VIOLATION_FACTOR * tolerance;
     let missed_unscaled = (0..m).any(|i| relative(i, outside(c[i], cl[i], cu[i])) > unscaled_limit)
         || (0..n).any(|j| {
-            let finite = |b: f64| if b.is_finite() { b.abs() } else { 0.0 };
             let a = outside(w[j], wl[j], wu[j]);
             a / (1.0 + w[j].abs().max(finite(wl[j])).max(finite(wu[j]))) > unscaled_limit
         });
