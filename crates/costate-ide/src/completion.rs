@@ -164,6 +164,11 @@ pub fn completions(analysis: &Analysis, offset: usize) -> Vec<CompletionItem> {
         }
         Some(_) => names(analysis, offset, &mut out),
     }
+    // Dynamics and path constraints hold at every instant: endpoint values and integrals are
+    // errors there (E0206, E0207), so they are not offered.
+    if matches!(cx.block, Some("dynamics" | "path")) {
+        out.retain(|item| !matches!(item.label.as_str(), "start" | "end" | "integral"));
+    }
     // After `:` in a declaration, `start` and `end` are attribute words; the built-ins of the
     // same names would only show up twice.
     let mut seen = std::collections::HashSet::new();

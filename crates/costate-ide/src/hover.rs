@@ -3,6 +3,7 @@
 //! solution did with it.
 
 use costate_check::{Endpoint, Interval, Symbol, SymbolKind, VarAttrs};
+use costate_syntax::ast::{ExprKind, Item};
 use costate_syntax::Span;
 
 use crate::signature::{builtin_signature, user_signature};
@@ -74,6 +75,19 @@ fn in_unit(symbol: &Symbol, si: f64) -> String {
     }
 }
 
+/// A constant's value as its declaration writes it, when that is one number with a unit and
+/// the constant declares none (`sway_max = 0.08 [rad]`): in SI a dimensionless unit such as
+/// `rad` would be lost from the hover.
+fn written_value(analysis: &Analysis, symbol: &Symbol) -> Option<String> {
+    let decl = analysis.parse.file.items.iter().find_map(|item| match item {
+        Item::Const(block) => block.entries.iter().find(|d| d.name.span == symbol.name_span),
+        _ => None,
+    })?;
+    let ExprKind::Number { text, unit: Some(unit), .. } = &decl.value.kind else { return None };
+    let unit = analysis.text(unit.span).trim_matches(|c| c == '[' || c == ']').trim();
+    Some(format!("{text} {unit}"))
+}
+
 fn describe(analysis: &Analysis, symbol: &Symbol, solution: Option<&SolveSummary>) -> String {
     let mut parts = Vec::new();
     let unit = symbol.unit.as_ref().map(|u| format!(" [{}]", u.display)).unwrap_or_default();
@@ -93,8 +107,12 @@ fn describe(analysis: &Analysis, symbol: &Symbol, solution: Option<&SolveSummary
     };
     parts.push(head);
     if symbol.kind == SymbolKind::Const {
-        if let Some(v) = symbol.value {
-            parts.push(format!("value: `{}`", in_unit(symbol, v)));
+        let shown = match (&symbol.unit, written_value(analysis, symbol)) {
+            (None, Some(written)) => Some(written),
+            _ => symbol.value.map(|v| in_unit(symbol, v)),
+        };
+        if let Some(v) = shown {
+            parts.push(format!("value: `{v}`"));
         }
     }
     let attrs = attributes(symbol, &symbol.attrs);

@@ -71,6 +71,15 @@ fn hover_on_declarations_and_uses() {
 
         value: `4.905 m/s^2`"#]],
     );
+    // A dimensionless unit as written stays in the hover (it was `value: 0.08`).
+    check_hover(
+        &SOURCE.replacen("  half = g / 2\n", "  half = g / 2\n  $0tilt = 0.08 [rad]\n", 1),
+        None,
+        expect![[r#"
+        **constant** `tilt`
+
+        value: `0.08 rad`"#]],
+    );
     check_hover(
         &with_cursor("soft(a, 2)"),
         None,
@@ -182,6 +191,16 @@ fn completion_in_each_context() {
     assert!(inside.contains(" limit ") && inside.contains(" value "), "{inside}");
     let outside = labels(&SOURCE.replacen("v' = soft(a, 2)", "v' = $0", 1));
     assert!(!outside.contains(" limit ") && outside.contains(" soft "), "{outside}");
+    // Dynamics and path rows hold at every instant: no endpoint values or integrals there.
+    let path = labels(&SOURCE.replacen("speed: -20 <= v <= 20", "speed: $0", 1));
+    for place in [&outside, &path] {
+        for invalid in [" start ", " end ", " integral "] {
+            assert!(!place.contains(invalid), "`{invalid}` offered: {place}");
+        }
+        assert!(place.contains(" sin "), "{place}");
+    }
+    let cost = labels(&SOURCE.replacen("  minimize end(t)", "  minimize $0", 1));
+    assert!(cost.contains(" end ") && cost.contains(" integral "), "{cost}");
     // The cost block: the senses.
     let cost = labels(&SOURCE.replacen("  minimize end(t)", "  $0", 1));
     expect!["maximize minimize"].assert_eq(&cost);
