@@ -102,3 +102,46 @@ fn the_binary_speaks_the_protocol_on_stdio() {
     let status = child.wait().unwrap();
     assert!(status.success(), "exit after shutdown is a clean exit: {status}");
 }
+
+#[test]
+fn malformed_messages_are_answered_and_the_server_goes_on() {
+    // Found by fuzzing: any of these made the server exit silently (code 0), and the huge
+    // length made it wait for ever.
+    let mut child = Command::new(env!("CARGO_BIN_EXE_costate"))
+        .arg("lsp")
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("costate lsp starts");
+    let mut stdin = child.stdin.take().unwrap();
+    let rx = reader(child.stdout.take().unwrap());
+    let raw = |stdin: &mut ChildStdin, bytes: &str| {
+        stdin.write_all(bytes.as_bytes()).unwrap();
+        stdin.flush().unwrap();
+    };
+    raw(&mut stdin, "Content-Length: 9\r\n\r\n{not json");
+    let parse = wait(&rx, |m| m["error"].is_object());
+    assert_eq!(parse["error"]["code"], -32700);
+    assert!(parse["id"].is_null());
+    raw(&mut stdin, "Content-Length: 2\r\n\r\n[]");
+    assert_eq!(wait(&rx, |m| m["error"].is_object())["error"]["code"], -32600);
+    raw(&mut stdin, "Content-Type: text/plain\r\n\r\n");
+    assert_eq!(wait(&rx, |m| m["error"].is_object())["error"]["code"], -32700);
+    raw(&mut stdin, "Content-Length: 1000000000000\r\n\r\n{\"never\"\n");
+    let refused = wait(&rx, |m| m["error"].is_object());
+    assert!(refused["error"]["message"].as_str().unwrap().contains("refused"), "{refused}");
+    // Still serving.
+    send(
+        &mut stdin,
+        json!({ "jsonrpc": "2.0", "id": 1, "method": "initialize", "params": { "processId": null, "rootUri": null, "capabilities": {} } }),
+    );
+    let init = wait(&rx, |m| m["id"] == 1);
+    assert_eq!(init["result"]["serverInfo"]["name"], "costate");
+    send(&mut stdin, json!({ "jsonrpc": "2.0", "id": 2, "method": "shutdown", "params": null }));
+    wait(&rx, |m| m["id"] == 2);
+    send(&mut stdin, json!({ "jsonrpc": "2.0", "method": "exit", "params": null }));
+    drop(stdin);
+    let status = child.wait().unwrap();
+    assert!(status.success(), "exit after shutdown is a clean exit: {status}");
+}

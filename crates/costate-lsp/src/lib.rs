@@ -1,6 +1,7 @@
 //! costate-lsp: the costate language server (`costate lsp`), on `tower-lsp-server` and tokio.
 //!
-//! Owns the protocol: position conversion (UTF-16), incremental document sync applied in order,
+//! Owns the protocol: a guard on the byte stream (malformed frames answered, not fatal),
+//! position conversion (UTF-16), incremental document sync applied in order,
 //! analysis off the async threads, solve-on-save with progress and cancellation, writing the
 //! solution files beside the problem, and the custom request `costate/solution`. Every editor
 //! feature itself is a pure function of `costate-ide`; the solve and the solution documents
@@ -14,6 +15,7 @@
 mod config;
 mod convert;
 mod documents;
+mod framing;
 pub mod io;
 mod server;
 mod solving;
@@ -48,6 +50,9 @@ pub fn run_stdio() -> Result<(), String> {
         .thread_stack_size(costate_check::STACK_FOR_ANALYSIS)
         .build()
         .map_err(|e| format!("cannot start the language server: {e}"))?;
-    runtime.block_on(serve(tokio::io::stdin(), tokio::io::stdout()));
+    runtime.block_on(framing::serve_guarded(tokio::io::stdin(), tokio::io::stdout()));
+    // A read of stdin may still be pending on a blocking thread if the client keeps the pipe
+    // open after `exit`: do not wait for it.
+    runtime.shutdown_timeout(std::time::Duration::from_millis(200));
     Ok(())
 }
