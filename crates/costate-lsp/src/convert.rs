@@ -27,10 +27,23 @@ pub fn span(analysis: &Analysis, range: Range) -> Span {
     Span::new(offset(analysis, range.start), offset(analysis, range.end))
 }
 
-pub fn diagnostic(analysis: &Analysis, uri: &Uri, d: &Diagnostic) -> lsp::Diagnostic {
+/// `related`: the client shows related information; for one that does not (Neovim), each
+/// secondary label is folded into the message with its line, so nothing the CLI shows is lost.
+pub fn diagnostic(
+    analysis: &Analysis,
+    uri: &Uri,
+    d: &Diagnostic,
+    related: bool,
+) -> lsp::Diagnostic {
     let mut message = d.message.clone();
     if !d.primary.message.is_empty() {
         message.push_str(&format!("\n{}", d.primary.message));
+    }
+    if !related {
+        for l in &d.labels {
+            let line = position(analysis, l.span.start).line + 1;
+            message.push_str(&format!("\nline {line}: {}", l.message));
+        }
     }
     for note in &d.notes {
         message.push_str(&format!("\nnote: {note}"));
@@ -38,7 +51,7 @@ pub fn diagnostic(analysis: &Analysis, uri: &Uri, d: &Diagnostic) -> lsp::Diagno
     if let Some(help) = &d.help {
         message.push_str(&format!("\nhelp: {help}"));
     }
-    let related: Vec<DiagnosticRelatedInformation> = d
+    let related_information: Vec<DiagnosticRelatedInformation> = d
         .labels
         .iter()
         .map(|l| DiagnosticRelatedInformation {
@@ -55,7 +68,8 @@ pub fn diagnostic(analysis: &Analysis, uri: &Uri, d: &Diagnostic) -> lsp::Diagno
         code: Some(NumberOrString::String(d.code.id.to_string())),
         source: Some("costate".into()),
         message,
-        related_information: (!related.is_empty()).then_some(related),
+        related_information: (related && !related_information.is_empty())
+            .then_some(related_information),
         ..Default::default()
     }
 }

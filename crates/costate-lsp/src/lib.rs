@@ -43,7 +43,18 @@ where
 
 /// Run the server over standard input and output (blocking), logging to stderr.
 pub fn run_stdio() -> Result<(), String> {
-    let _ = tracing_subscriber::fmt().with_writer(std::io::stderr).with_ansi(false).try_init();
+    // Editors file everything on a server's stderr under errors (Neovim's log does), so only
+    // warnings and errors go there unless `COSTATE_LOG` asks for more (error, warn, info,
+    // debug, trace). What a user should see after a solve goes through the protocol instead.
+    let level = std::env::var("COSTATE_LOG")
+        .ok()
+        .and_then(|v| v.parse::<tracing::Level>().ok())
+        .unwrap_or(tracing::Level::WARN);
+    let _ = tracing_subscriber::fmt()
+        .with_writer(std::io::stderr)
+        .with_ansi(false)
+        .with_max_level(level)
+        .try_init();
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .enable_all()
         // Analysis runs on the runtime's blocking threads and recurses over expressions.

@@ -48,6 +48,8 @@ struct State {
 #[derive(Default, Clone, Copy)]
 struct ClientSupport {
     progress: bool,
+    /// Shows a diagnostic's related information; if not, the labels go into its message.
+    related_information: bool,
     code_lens_refresh: bool,
     inlay_hint_refresh: bool,
 }
@@ -128,18 +130,20 @@ impl Backend {
         if self.state().documents.get(&uri).is_none_or(|d| d.version != version) {
             return; // edited meanwhile: the publish for the newer version follows
         }
+        let related = self.state().client.related_information;
         // A few hundred at most; the last one shown says how many more there are.
         let (listed, omitted) = costate_syntax::shown_diagnostics(&analysis.diagnostics);
         let mut diagnostics: Vec<_> =
-            listed.iter().map(|d| convert::diagnostic(&analysis, &uri, d)).collect();
+            listed.iter().map(|d| convert::diagnostic(&analysis, &uri, d, related)).collect();
         if omitted > 0 {
             if let Some(last) = diagnostics.last_mut() {
                 last.message.push_str(&format!("\n(and {omitted} more diagnostics in this file)"));
             }
         }
         if let Some(solve) = self.latest_solve(&uri).filter(|s| s.text == analysis.source) {
-            diagnostics
-                .extend(solve.findings.iter().map(|d| convert::diagnostic(&analysis, &uri, d)));
+            diagnostics.extend(
+                solve.findings.iter().map(|d| convert::diagnostic(&analysis, &uri, d, related)),
+            );
         }
         self.client.publish_diagnostics(uri, diagnostics, Some(version)).await;
     }
@@ -255,6 +259,15 @@ impl Backend {
         }
         let summary = summary::from_document(&solved.document);
         let status = summary.status.clone();
+        // One line in the client's log per solve, shown whatever the client does with lenses.
+        let line = format!(
+            "costate: {}: {} · cost {} · {} iterations · {:.2} s",
+            solved.problem,
+            summary.status,
+            costate_driver::report::sig(summary.cost, 6),
+            summary.iterations,
+            summary.seconds
+        );
         let result = Arc::new(SolveResult {
             summary,
             document: solved.document,
@@ -277,6 +290,7 @@ impl Backend {
             return finish(progress, "cancelled by a newer save").await;
         }
         tracing::info!("solved {}: {status}", uri.as_str());
+        self.client.log_message(MessageType::INFO, line).await;
         self.publish(uri).await;
         if support.code_lens_refresh {
             let _ = self.client.code_lens_refresh().await;
@@ -325,6 +339,12 @@ impl LanguageServer for Backend {
             let mut st = self.state();
             st.client = ClientSupport {
                 progress: supports(caps.window.as_ref().and_then(|w| w.work_done_progress)),
+                related_information: supports(
+                    caps.text_document
+                        .as_ref()
+                        .and_then(|t| t.publish_diagnostics.as_ref())
+                        .and_then(|p| p.related_information),
+                ),
                 code_lens_refresh: supports(
                     caps.workspace
                         .as_ref()

@@ -471,6 +471,10 @@ async fn solve_on_save_shows_the_result_and_writes_the_files() {
     check(client.solve_finished().await, expect!["solved"]);
     client.wait_for(|m| m["method"] == "workspace/codeLens/refresh").await;
     client.wait_for(|m| m["method"] == "workspace/inlayHint/refresh").await;
+    let log = client.wait_for(|m| m["method"] == "window/logMessage").await;
+    let line = log["params"]["message"].as_str().unwrap();
+    assert!(line.starts_with("costate: hop: solved · cost 12.1"), "{line}");
+    assert_eq!(log["params"]["type"], 3, "an information, not an error");
 
     // The custom request returns exactly the file written beside the problem.
     let document = client.request("costate/solution", json!({ "uri": uri })).await;
@@ -656,4 +660,29 @@ async fn a_failed_solve_never_replaces_the_last_good_solution_files() {
     let labels: Vec<&str> =
         hints.as_array().unwrap().iter().map(|h| h["label"].as_str().unwrap()).collect();
     assert!(!labels.is_empty() && labels.iter().all(|l| l.ends_with("(not solved)")), "{labels:?}");
+}
+
+#[tokio::test]
+async fn secondary_labels_reach_clients_that_do_not_show_related_information() {
+    // `x' = u` with `u` in m and `x` in m: the rate is off by a time; the finding's second
+    // label ("`m` per `s`", on the state's line) is related information, which Neovim does
+    // not show.
+    let text = "problem labels\ntime t [s]: start 0, end 1\nstate {\n  x [m]: start 0\n}\ncontrol { u [m]: in -1 .. 1 }\ndynamics {\n  x' = u\n}\ncost { minimize integral(u^2) }\n";
+    let mut plain = TestClient::start();
+    plain.initialize(json!({ "solveOnSave": false })).await;
+    plain.open(URI, text).await;
+    let folded = plain.diagnostics(URI, 1).await;
+    assert_eq!(folded.len(), 1, "{folded:?}");
+    let message = folded[0]["message"].as_str().unwrap();
+    assert!(message.contains("\nline 8: `m` per `s`"), "{message}");
+    assert!(folded[0]["relatedInformation"].is_null());
+
+    let mut rich = TestClient::start();
+    let capabilities =
+        json!({ "textDocument": { "publishDiagnostics": { "relatedInformation": true } } });
+    rich.initialize_with(capabilities, json!({ "solveOnSave": false })).await;
+    rich.open(URI, text).await;
+    let related = rich.diagnostics(URI, 1).await;
+    assert!(!related[0]["message"].as_str().unwrap().contains("\nline 8:"), "{related:?}");
+    assert_eq!(related[0]["relatedInformation"][0]["message"], "`m` per `s`");
 }

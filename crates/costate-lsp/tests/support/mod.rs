@@ -136,19 +136,24 @@ impl TestClient {
     }
 
     pub async fn initialize(&mut self, options: Value) -> Value {
+        let capabilities = json!({
+            "window": { "workDoneProgress": true },
+            "workspace": {
+                "codeLens": { "refreshSupport": true },
+                "inlayHint": { "refreshSupport": true }
+            }
+        });
+        self.initialize_with(capabilities, options).await
+    }
+
+    pub async fn initialize_with(&mut self, capabilities: Value, options: Value) -> Value {
         let result = self
             .request(
                 "initialize",
                 json!({
                     "processId": null,
                     "rootUri": null,
-                    "capabilities": {
-                        "window": { "workDoneProgress": true },
-                        "workspace": {
-                            "codeLens": { "refreshSupport": true },
-                            "inlayHint": { "refreshSupport": true }
-                        }
-                    },
+                    "capabilities": capabilities,
                     "initializationOptions": options,
                 }),
             )
