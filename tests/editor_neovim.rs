@@ -84,6 +84,14 @@ fn neovim_shows_diagnostics_hover_completion_and_the_solve() {
     assert_eq!(received["progress_end"], solution["status"]);
     let lens = received["code_lens"][0]["command"]["title"].as_str().unwrap();
     assert!(lens.starts_with(solution["status"].as_str().unwrap()), "{lens}");
+    // What the plugin shows with the README's set-up and nothing else: the lens, refreshed
+    // after the solve, and the floating summary of :CostateSummary.
+    let shown = received["shown_lens"].as_str().unwrap_or_default();
+    assert!(shown.starts_with(solution["status"].as_str().unwrap()), "{received:#}");
+    let summary: Vec<&str> =
+        received["summary"].as_array().unwrap().iter().filter_map(|l| l.as_str()).collect();
+    assert!(summary.iter().any(|l| l.contains("crane_transfer") && l.contains("solved")), "{summary:?}");
+    assert!(summary.iter().any(|l| l.starts_with("cost ")), "{summary:?}");
     assert!(dir.join("crane_transfer.solution.json").is_file(), "written beside the problem");
     assert!(dir.join("crane_transfer.csv").is_file());
 }

@@ -97,6 +97,27 @@ local function run()
   result.progress_end = progress_end
   result.solution = request("costate/solution", { uri = uri })
   result.code_lens = request("textDocument/codeLens", { textDocument = { uri = uri } })
+  -- What the plugin shows by itself: the lens, refreshed when the server asks.
+  wait("the plugin's lens to show the solve", function()
+    for _, lens in ipairs(vim.lsp.codelens.get(buf) or {}) do
+      if lens.command and lens.command.title:find("solved", 1, true) then
+        result.shown_lens = lens.command.title
+        return true
+      end
+    end
+    return false
+  end)
+  -- :CostateSummary opens a floating window.
+  vim.cmd("CostateSummary")
+  wait("the summary window", function()
+    for _, win in ipairs(vim.api.nvim_list_wins()) do
+      if vim.api.nvim_win_get_config(win).relative ~= "" then
+        result.summary = vim.api.nvim_buf_get_lines(vim.api.nvim_win_get_buf(win), 0, -1, false)
+        return true
+      end
+    end
+    return false
+  end)
   vim.lsp.stop_client(client.id)
 end
 

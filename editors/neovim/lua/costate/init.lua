@@ -100,17 +100,89 @@ function M.setup(opts)
     pattern = "costate",
     callback = function(args)
       M.start(args.buf, M.options)
+      M.show_results(args.buf)
     end,
   })
   vim.api.nvim_create_user_command("CostateSolution", M.show_solution, {
     desc = "Show the latest costate solution of this buffer as JSON",
   })
+  vim.api.nvim_create_user_command("CostateSummary", M.show_summary, {
+    desc = "Show the latest costate solve of this buffer in a floating window",
+  })
   -- Buffers already open when setup() runs (e.g. `nvim file.costate` with a lazy plugin manager).
   for _, buf in ipairs(vim.api.nvim_list_bufs()) do
     if vim.api.nvim_buf_is_loaded(buf) and vim.bo[buf].filetype == "costate" then
       M.start(buf, M.options)
+      M.show_results(buf)
     end
   end
+end
+
+--- What a solve leaves in the buffer, with no configuration: the end values as inlay hints
+--- (Neovim 0.10+, which has them) and the lens on the `problem` line, refreshed when a solve
+--- ends and on entering or writing the buffer (every version, 0.7 included).
+function M.show_results(bufnr)
+  if vim.lsp.inlay_hint ~= nil and vim.lsp.inlay_hint.enable ~= nil then
+    -- 0.10 takes (enable, filter); 0.9's experimental API took (bufnr, enable).
+    pcall(vim.lsp.inlay_hint.enable, true, { bufnr = bufnr })
+  end
+  if vim.lsp.codelens == nil then
+    return
+  end
+  local group = vim.api.nvim_create_augroup("costate_lens_" .. bufnr, { clear = true })
+  vim.api.nvim_create_autocmd({ "BufEnter", "BufWritePost", "InsertLeave", "CursorHold" }, {
+    group = group,
+    buffer = bufnr,
+    callback = function()
+      if M.client(bufnr) ~= nil then
+        pcall(vim.lsp.codelens.refresh)
+      end
+    end,
+  })
+  -- A solve ends with the end of its progress: refresh then. (The server also asks clients
+  -- that announce lens refreshes; Neovim before 0.10 does not.) Installed once, in front of
+  -- whatever handler was there.
+  if not M.progress_hooked then
+    M.progress_hooked = true
+    local previous = vim.lsp.handlers["$/progress"]
+    vim.lsp.handlers["$/progress"] = function(err, result, ctx, config)
+      local answer = previous and previous(err, result, ctx, config)
+      local client = ctx and vim.lsp.get_client_by_id(ctx.client_id)
+      if client and client.name == "costate" and result and result.value
+          and result.value.kind == "end" then
+        pcall(vim.lsp.codelens.refresh)
+      end
+      return answer
+    end
+  end
+end
+
+--- The lines of the floating summary for a solution document (docs/solution-format.md).
+function M.summary_lines(doc)
+  local lines = {
+    ("**%s**: %s"):format(doc.problem or "?", doc.status or "?"),
+    ("cost %s (%s)"):format(tostring(doc.cost), doc.sense or ""),
+    ("end %s %s"):format(tostring(doc.end_time), (doc.time and doc.time.unit ~= vim.NIL and doc.time.unit) or ""),
+    ("violation %s · %s iterations · %s intervals"):format(
+      tostring(doc.max_violation), tostring(doc.iterations), tostring(doc.intervals)),
+  }
+  if doc.findings ~= nil and doc.findings ~= vim.NIL then
+    for _, f in ipairs(doc.findings) do
+      table.insert(lines, ("line %d: %s"):format(f.span.from.line, f.message))
+    end
+  end
+  if doc.solved ~= true then
+    table.insert(lines, "not a solution: the values are the last iterate")
+  end
+  return lines
+end
+
+--- `:CostateSummary`: the latest solve of the current buffer in a floating window.
+function M.show_summary()
+  local bufnr = vim.api.nvim_get_current_buf()
+  M.request_solution(bufnr, function(result)
+    vim.lsp.util.open_floating_preview(M.summary_lines(result), "markdown", { border = "single" })
+  end)
 end
 
 --- The costate client attached to buffer `bufnr`, or nil (on every version from 0.7).
@@ -129,10 +201,9 @@ function M.client(bufnr)
   return nil
 end
 
---- Asks the server for the latest solution of the current buffer (the custom request
---- `costate/solution`) and opens the JSON document in a scratch buffer; `nil` means none yet.
-function M.show_solution()
-  local bufnr = vim.api.nvim_get_current_buf()
+--- Asks the server for the latest solution of buffer `bufnr` (the custom request
+--- `costate/solution`) and calls `on_result` with the document; says why when there is none.
+function M.request_solution(bufnr, on_result)
   local client = M.client(bufnr)
   if client == nil then
     vim.notify("costate: no costate server attached to this buffer", vim.log.levels.WARN)
@@ -148,13 +219,21 @@ function M.show_solution()
       vim.notify("costate: no solution yet; save the file to solve it", vim.log.levels.INFO)
       return
     end
+    on_result(result)
+  end, bufnr)
+end
+
+--- `:CostateSolution`: the latest solution document of the current buffer as JSON in a
+--- scratch buffer.
+function M.show_solution()
+  M.request_solution(vim.api.nvim_get_current_buf(), function(result)
     vim.cmd("vnew")
     local out = vim.api.nvim_get_current_buf()
     vim.bo[out].buftype = "nofile"
     vim.bo[out].bufhidden = "wipe"
     vim.bo[out].filetype = "json"
     vim.api.nvim_buf_set_lines(out, 0, -1, false, vim.split(vim.json.encode(result), "\n"))
-  end, bufnr)
+  end)
 end
 
 return M
