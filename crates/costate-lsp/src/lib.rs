@@ -14,7 +14,7 @@
 
 mod config;
 mod convert;
-mod documents;
+pub mod documents;
 mod framing;
 pub mod io;
 mod server;
