@@ -90,7 +90,10 @@ fn neovim_shows_diagnostics_hover_completion_and_the_solve() {
     assert!(shown.starts_with(solution["status"].as_str().unwrap()), "{received:#}");
     let summary: Vec<&str> =
         received["summary"].as_array().unwrap().iter().filter_map(|l| l.as_str()).collect();
-    assert!(summary.iter().any(|l| l.contains("crane_transfer") && l.contains("solved")), "{summary:?}");
+    assert!(
+        summary.iter().any(|l| l.contains("crane_transfer") && l.contains("solved")),
+        "{summary:?}"
+    );
     assert!(summary.iter().any(|l| l.starts_with("cost ")), "{summary:?}");
     assert!(dir.join("crane_transfer.solution.json").is_file(), "written beside the problem");
     assert!(dir.join("crane_transfer.csv").is_file());
