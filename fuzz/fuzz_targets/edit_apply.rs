@@ -2,7 +2,7 @@
 //! inside a multi-byte character, reversed): the text stays valid UTF-8 and analysable.
 #![no_main]
 use arbitrary::Arbitrary;
-use costate_lsp::documents::Document;
+use costate_lsp::Document;
 use libfuzzer_sys::fuzz_target;
 use tower_lsp_server::lsp_types::{Position, Range, TextDocumentContentChangeEvent};
 

@@ -14,7 +14,7 @@
 
 mod config;
 mod convert;
-pub mod documents;
+mod documents;
 mod framing;
 pub mod io;
 mod server;
@@ -22,6 +22,8 @@ mod solving;
 mod summary;
 
 pub use config::Config;
+/// An open document with its edits applied (public for the `edit_apply` fuzz target).
+pub use documents::Document;
 pub use server::{Backend, SolutionParams, SOLUTION_REQUEST};
 
 use tower_lsp_server::{ClientSocket, LspService, Server};
