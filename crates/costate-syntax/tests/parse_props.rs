@@ -162,3 +162,25 @@ fn blank_lines_inside_an_expression_are_skipped_in_one_pass() {
         parse.diagnostics.iter().map(|d| &d.message).collect::<Vec<_>>()
     );
 }
+
+#[test]
+fn a_half_typed_equation_is_reported_on_its_own_line() {
+    // `v' =` used to swallow the next equation: the error showed on the line after it, and
+    // `x` lost its dynamics.
+    let text = "problem half\ndynamics {\n  v' =\n  x' = v\n}\n";
+    let parse = costate_syntax::parse(text);
+    let line_of = |offset: usize| text[..offset].matches('\n').count() + 1;
+    let errors: Vec<_> = parse.diagnostics.iter().filter(|d| d.is_error()).collect();
+    assert_eq!(errors.len(), 1, "{errors:?}");
+    assert_eq!(line_of(errors[0].primary.span.start), 3, "{:?}", errors[0]);
+    let equations = parse
+        .file
+        .items
+        .iter()
+        .find_map(|item| match item {
+            costate_syntax::ast::Item::Dynamics(b) => Some(b.entries.len()),
+            _ => None,
+        })
+        .unwrap();
+    assert_eq!(equations, 1, "`x' = v` is kept as an equation of its own");
+}

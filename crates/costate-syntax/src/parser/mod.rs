@@ -168,6 +168,16 @@ fn starts_item(toks: &[Spanned<'_>], i: usize) -> bool {
     }
 }
 
+/// True when an entry of a block starts at `i`: `name'` (a dynamics equation) or `name:` (a
+/// labelled constraint), which no expression can continue with. A half-typed `v' =` then
+/// ends on its own line instead of swallowing the next equation.
+fn starts_entry(toks: &[Spanned<'_>], i: usize) -> bool {
+    matches!(
+        (toks.get(i), toks.get(i + 1)),
+        (Some((Tok::Ident(_), _)), Some((Tok::Prime | Tok::Colon, _)))
+    )
+}
+
 /// Drops the line breaks that do not end an entry, and turns `///` lines that sit inside an
 /// entry (where nothing can carry them) into plain comments.
 fn significant_tokens<'a>(
@@ -199,7 +209,7 @@ fn significant_tokens<'a>(
                     // A new item on the next line always ends the entry: a dangling operator
                     // must not pull the next item into this one.
                     let next = Some(next_code[i]).filter(|&k| k < raw.len());
-                    if !next.is_some_and(|k| starts_item(raw, k)) {
+                    if !next.is_some_and(|k| starts_item(raw, k) || starts_entry(raw, k)) {
                         continue;
                     }
                 }
